@@ -1,0 +1,995 @@
+//! The network as a checked, owned model: named nodes and named parts.
+//!
+//! Node 0 is the reference node, called `gnd`. Every two-terminal part has a first and a
+//! second node; its current is counted positive flowing *through the part* from the first node
+//! to the second (the passive sign convention). For a current source this means the source's
+//! current leaves the network at the first node and enters it at the second.
+//!
+//! Networks are made by [`NetworkBuilder`], from a design file or from code; the builder checks
+//! every value (positive and finite where physics says so, `0 < k ≤ 1` for a coupling) and
+//! resolves references between parts (a coupling's inductors, a current-controlled source's
+//! control) when [`NetworkBuilder::build`] is called.
+
+use crate::units::VALUE_LIMIT;
+use num_complex::Complex64;
+use std::collections::HashMap;
+
+/// Index of a node; 0 is ground.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub struct NodeId(pub usize);
+
+impl NodeId {
+    /// The reference node.
+    pub const GROUND: NodeId = NodeId(0);
+    /// Whether this is the reference node.
+    pub fn is_ground(self) -> bool {
+        self.0 == 0
+    }
+}
+
+/// Index of a part in [`Network::parts`].
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub struct PartId(pub usize);
+
+/// The name of the reference node in designs.
+pub const GROUND_NAME: &str = "gnd";
+
+/// One element of the network.
+#[derive(Clone, Debug, PartialEq)]
+pub enum PartKind {
+    /// Resistor of `ohms` between `a` and `b`.
+    Resistor {
+        /// First node.
+        a: NodeId,
+        /// Second node.
+        b: NodeId,
+        /// Resistance in ohms (> 0).
+        ohms: f64,
+    },
+    /// Capacitor of `farads` between `a` and `b`.
+    Capacitor {
+        /// First node.
+        a: NodeId,
+        /// Second node.
+        b: NodeId,
+        /// Capacitance in farads (> 0).
+        farads: f64,
+    },
+    /// Inductor of `henries` between `a` and `b`; `a` is the dotted end for couplings.
+    Inductor {
+        /// First (dotted) node.
+        a: NodeId,
+        /// Second node.
+        b: NodeId,
+        /// Inductance in henries (> 0).
+        henries: f64,
+    },
+    /// Magnetic coupling of two inductors: M = k·√(L1·L2).
+    Coupling {
+        /// First inductor.
+        first: PartId,
+        /// Second inductor.
+        second: PartId,
+        /// Coupling coefficient, 0 < k ≤ 1.
+        k: f64,
+    },
+    /// Independent voltage source: V(plus) − V(minus) = phasor.
+    VoltageSource {
+        /// Positive terminal.
+        plus: NodeId,
+        /// Negative terminal.
+        minus: NodeId,
+        /// Source phasor in volts.
+        phasor: Complex64,
+    },
+    /// Independent current source: `phasor` flows through the source from `from` to `to`.
+    CurrentSource {
+        /// Node the current leaves the network at.
+        from: NodeId,
+        /// Node the current enters the network at.
+        to: NodeId,
+        /// Source phasor in amperes.
+        phasor: Complex64,
+    },
+    /// Voltage-controlled voltage source: V(plus) − V(minus) = gain·(V(cp) − V(cn)).
+    Vcvs {
+        /// Output positive terminal.
+        plus: NodeId,
+        /// Output negative terminal.
+        minus: NodeId,
+        /// Sensed positive node.
+        cp: NodeId,
+        /// Sensed negative node.
+        cn: NodeId,
+        /// Voltage gain (V/V).
+        gain: f64,
+    },
+    /// Voltage-controlled current source: gm·(V(cp) − V(cn)) flows through it from `from` to `to`.
+    Vccs {
+        /// Node the current leaves the network at.
+        from: NodeId,
+        /// Node the current enters the network at.
+        to: NodeId,
+        /// Sensed positive node.
+        cp: NodeId,
+        /// Sensed negative node.
+        cn: NodeId,
+        /// Transconductance (S).
+        gm: f64,
+    },
+    /// Current-controlled voltage source: V(plus) − V(minus) = rm·I(control).
+    Ccvs {
+        /// Output positive terminal.
+        plus: NodeId,
+        /// Output negative terminal.
+        minus: NodeId,
+        /// The part whose current is sensed.
+        control: PartId,
+        /// Transresistance (Ω).
+        rm: f64,
+    },
+    /// Current-controlled current source: gain·I(control) flows through it from `from` to `to`.
+    Cccs {
+        /// Node the current leaves the network at.
+        from: NodeId,
+        /// Node the current enters the network at.
+        to: NodeId,
+        /// The part whose current is sensed.
+        control: PartId,
+        /// Current gain (A/A).
+        gain: f64,
+    },
+    /// Ideal op-amp: infinite gain, no input current, output referred to ground.
+    IdealOpamp {
+        /// Non-inverting input.
+        noninverting: NodeId,
+        /// Inverting input.
+        inverting: NodeId,
+        /// Output.
+        output: NodeId,
+    },
+    /// Op-amp with finite DC gain and one pole: A(s) = A0 / (1 + s·A0/(2π·GBW)).
+    SinglePoleOpamp {
+        /// Non-inverting input.
+        noninverting: NodeId,
+        /// Inverting input.
+        inverting: NodeId,
+        /// Output.
+        output: NodeId,
+        /// DC open-loop gain A0 (V/V, > 0).
+        dc_gain: f64,
+        /// Gain-bandwidth product in Hz (> 0).
+        gbw: f64,
+    },
+}
+
+impl PartKind {
+    /// The word used for this kind in designs and messages.
+    pub fn word(&self) -> &'static str {
+        match self {
+            PartKind::Resistor { .. } => "resistor",
+            PartKind::Capacitor { .. } => "capacitor",
+            PartKind::Inductor { .. } => "inductor",
+            PartKind::Coupling { .. } => "coupling",
+            PartKind::VoltageSource { .. } => "voltage source",
+            PartKind::CurrentSource { .. } => "current source",
+            PartKind::Vcvs { .. } => "vcvs",
+            PartKind::Vccs { .. } => "vccs",
+            PartKind::Ccvs { .. } => "ccvs",
+            PartKind::Cccs { .. } => "cccs",
+            PartKind::IdealOpamp { .. } => "ideal op-amp",
+            PartKind::SinglePoleOpamp { .. } => "single-pole op-amp",
+        }
+    }
+
+    /// The nodes this part touches, in its own order.
+    pub fn nodes(&self) -> Vec<NodeId> {
+        match *self {
+            PartKind::Resistor { a, b, .. }
+            | PartKind::Capacitor { a, b, .. }
+            | PartKind::Inductor { a, b, .. } => vec![a, b],
+            PartKind::Coupling { .. } => vec![],
+            PartKind::VoltageSource { plus, minus, .. } => vec![plus, minus],
+            PartKind::CurrentSource { from, to, .. } => vec![from, to],
+            PartKind::Vcvs {
+                plus,
+                minus,
+                cp,
+                cn,
+                ..
+            } => vec![plus, minus, cp, cn],
+            PartKind::Vccs {
+                from, to, cp, cn, ..
+            } => vec![from, to, cp, cn],
+            PartKind::Ccvs { plus, minus, .. } => vec![plus, minus],
+            PartKind::Cccs { from, to, .. } => vec![from, to],
+            PartKind::IdealOpamp {
+                noninverting,
+                inverting,
+                output,
+            }
+            | PartKind::SinglePoleOpamp {
+                noninverting,
+                inverting,
+                output,
+                ..
+            } => vec![noninverting, inverting, output],
+        }
+    }
+
+    /// Whether the part's current can be sensed by a current-controlled source or a response.
+    /// Current-controlled current sources are excluded so that controls cannot form a cycle.
+    pub fn has_sensable_current(&self) -> bool {
+        !matches!(self, PartKind::Coupling { .. } | PartKind::Cccs { .. })
+    }
+}
+
+/// A named part.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Part {
+    /// Unique name, as in the design.
+    pub name: String,
+    /// What it is and where it connects.
+    pub kind: PartKind,
+    /// Manufacturing tolerance as a fraction (0.01 for 1 %), where given.
+    pub tolerance: Option<f64>,
+}
+
+/// A checked network: every node reference valid, every value in range, names unique.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Network {
+    /// Design title.
+    pub title: String,
+    nodes: Vec<String>,
+    parts: Vec<Part>,
+}
+
+impl Network {
+    /// Node names; index 0 is `gnd`.
+    pub fn node_names(&self) -> &[String] {
+        &self.nodes
+    }
+    /// Name of a node.
+    pub fn node_name(&self, node: NodeId) -> &str {
+        self.nodes.get(node.0).map_or("?", String::as_str)
+    }
+    /// Looks a node up by name.
+    pub fn node(&self, name: &str) -> Option<NodeId> {
+        self.nodes.iter().position(|n| n == name).map(NodeId)
+    }
+    /// All parts in order of definition.
+    pub fn parts(&self) -> &[Part] {
+        &self.parts
+    }
+    /// One part.
+    pub fn part(&self, id: PartId) -> Option<&Part> {
+        self.parts.get(id.0)
+    }
+    /// Looks a part up by name.
+    pub fn part_id(&self, name: &str) -> Option<PartId> {
+        self.parts.iter().position(|p| p.name == name).map(PartId)
+    }
+    /// Number of nodes including ground.
+    pub fn node_count(&self) -> usize {
+        self.nodes.len()
+    }
+}
+
+/// Why a network could not be built. Each names the part (and node or value) at fault.
+#[derive(Clone, Debug, PartialEq, thiserror::Error)]
+#[non_exhaustive]
+pub enum NetworkError {
+    /// Two parts share a name.
+    #[error("part name {name:?} is used twice; give each part its own name")]
+    DuplicateName {
+        /// The name.
+        name: String,
+    },
+    /// A value that must be positive and finite is not.
+    #[error("{part}: {what} must be positive and finite, got {value}")]
+    NotPositive {
+        /// Part name.
+        part: String,
+        /// Which value.
+        what: &'static str,
+        /// The value given.
+        value: f64,
+    },
+    /// A value is outside the sane range.
+    #[error("{part}: {what} {value} is outside 1e-30 … 1e30 in magnitude")]
+    OutOfRange {
+        /// Part name.
+        part: String,
+        /// Which value.
+        what: &'static str,
+        /// The value given.
+        value: f64,
+    },
+    /// A coupling coefficient outside (0, 1].
+    #[error("{part}: coupling coefficient k = {k} is outside 0 < k ≤ 1")]
+    CouplingOutOfRange {
+        /// Part name.
+        part: String,
+        /// The value given.
+        k: f64,
+    },
+    /// A reference to a part that does not exist.
+    #[error("{part}: {role} {target:?} is not a part of this design")]
+    MissingPart {
+        /// Part that refers.
+        part: String,
+        /// What the reference is for.
+        role: &'static str,
+        /// Name referred to.
+        target: String,
+    },
+    /// A reference to a part of the wrong kind.
+    #[error("{part}: {role} {target:?} is a {found}, expected {expected}")]
+    WrongKind {
+        /// Part that refers.
+        part: String,
+        /// What the reference is for.
+        role: &'static str,
+        /// Name referred to.
+        target: String,
+        /// Its kind.
+        found: &'static str,
+        /// What would do.
+        expected: &'static str,
+    },
+    /// A coupling joining an inductor to itself, or one inductor pair coupled twice.
+    #[error("{part}: {reason}")]
+    BadCoupling {
+        /// Part name.
+        part: String,
+        /// What is wrong.
+        reason: String,
+    },
+    /// A two-terminal part with both ends on one node.
+    #[error("{part}: both ends are on node {node:?}; connect it between two different nodes")]
+    ShortedPart {
+        /// Part name.
+        part: String,
+        /// The node.
+        node: String,
+    },
+    /// An empty or otherwise unusable name.
+    #[error("{what} name {name:?} is not usable: {reason}")]
+    BadName {
+        /// "part" or "node".
+        what: &'static str,
+        /// The name.
+        name: String,
+        /// Why.
+        reason: &'static str,
+    },
+    /// An op-amp whose output is the reference node.
+    #[error("{part}: the output is on gnd; an op-amp output must drive a node of its own")]
+    GroundedOutput {
+        /// Part name.
+        part: String,
+    },
+    /// Limits on size.
+    #[error("the network has more than {limit} {what}")]
+    TooLarge {
+        /// What is counted.
+        what: &'static str,
+        /// The limit.
+        limit: usize,
+    },
+}
+
+/// Largest number of parts a network may have (memory safety against absurd inputs).
+pub const MAX_PARTS: usize = 20_000_000;
+
+/// Control references resolved at build time.
+#[derive(Clone, Debug)]
+enum Pending {
+    Coupling {
+        first: String,
+        second: String,
+        k: f64,
+    },
+    Ccvs {
+        plus: NodeId,
+        minus: NodeId,
+        control: String,
+        rm: f64,
+    },
+    Cccs {
+        from: NodeId,
+        to: NodeId,
+        control: String,
+        gain: f64,
+    },
+}
+
+/// Builds a [`Network`] part by part. Node names are created on first use; `gnd` is ground.
+///
+/// ```
+/// use analyzer_core::network::NetworkBuilder;
+/// let mut b = NetworkBuilder::new("RC low-pass");
+/// b.voltage_source("V1", "in", "gnd", 1.0.into())?;
+/// b.resistor("R1", "in", "out", 1e3)?;
+/// b.capacitor("C1", "out", "gnd", 100e-9)?;
+/// let net = b.build()?;
+/// assert_eq!(net.parts().len(), 3);
+/// # Ok::<(), analyzer_core::network::NetworkError>(())
+/// ```
+#[derive(Clone, Debug)]
+pub struct NetworkBuilder {
+    title: String,
+    nodes: Vec<String>,
+    node_index: HashMap<String, NodeId>,
+    parts: Vec<(String, Option<PartKind>, Option<f64>)>,
+    pending: HashMap<usize, Pending>,
+    names: HashMap<String, usize>,
+}
+
+fn check_positive(part: &str, what: &'static str, value: f64) -> Result<f64, NetworkError> {
+    if !(value.is_finite() && value > 0.0) {
+        return Err(NetworkError::NotPositive {
+            part: part.to_string(),
+            what,
+            value,
+        });
+    }
+    check_range(part, what, value)
+}
+
+fn check_range(part: &str, what: &'static str, value: f64) -> Result<f64, NetworkError> {
+    let m = value.abs();
+    if !value.is_finite() || m > VALUE_LIMIT || (m != 0.0 && m < 1.0 / VALUE_LIMIT) {
+        return Err(NetworkError::OutOfRange {
+            part: part.to_string(),
+            what,
+            value,
+        });
+    }
+    Ok(value)
+}
+
+fn check_phasor(part: &str, value: Complex64) -> Result<Complex64, NetworkError> {
+    check_range(part, "source value", value.re)?;
+    check_range(part, "source value", value.im)?;
+    Ok(value)
+}
+
+impl NetworkBuilder {
+    /// A new, empty network with a title.
+    pub fn new(title: impl Into<String>) -> Self {
+        let mut node_index = HashMap::new();
+        node_index.insert(GROUND_NAME.to_string(), NodeId::GROUND);
+        NetworkBuilder {
+            title: title.into(),
+            nodes: vec![GROUND_NAME.to_string()],
+            node_index,
+            parts: Vec::new(),
+            pending: HashMap::new(),
+            names: HashMap::new(),
+        }
+    }
+
+    /// The node of this name, created if new.
+    pub fn node(&mut self, name: &str) -> Result<NodeId, NetworkError> {
+        if let Some(&id) = self.node_index.get(name) {
+            return Ok(id);
+        }
+        if name.trim().is_empty() {
+            return Err(NetworkError::BadName {
+                what: "node",
+                name: name.to_string(),
+                reason: "it is empty",
+            });
+        }
+        if name.chars().any(char::is_whitespace) {
+            return Err(NetworkError::BadName {
+                what: "node",
+                name: name.to_string(),
+                reason: "it contains white space",
+            });
+        }
+        let id = NodeId(self.nodes.len());
+        self.nodes.push(name.to_string());
+        self.node_index.insert(name.to_string(), id);
+        Ok(id)
+    }
+
+    fn add(&mut self, name: &str, kind: Option<PartKind>) -> Result<usize, NetworkError> {
+        if name.trim().is_empty() || name.chars().any(char::is_whitespace) {
+            return Err(NetworkError::BadName {
+                what: "part",
+                name: name.to_string(),
+                reason: "it is empty or contains white space",
+            });
+        }
+        if self.names.contains_key(name) {
+            return Err(NetworkError::DuplicateName {
+                name: name.to_string(),
+            });
+        }
+        if self.parts.len() >= MAX_PARTS {
+            return Err(NetworkError::TooLarge {
+                what: "parts",
+                limit: MAX_PARTS,
+            });
+        }
+        let index = self.parts.len();
+        self.names.insert(name.to_string(), index);
+        self.parts.push((name.to_string(), kind, None));
+        Ok(index)
+    }
+
+    fn two(&mut self, part: &str, a: &str, b: &str) -> Result<(NodeId, NodeId), NetworkError> {
+        let (na, nb) = (self.node(a)?, self.node(b)?);
+        if na == nb {
+            return Err(NetworkError::ShortedPart {
+                part: part.to_string(),
+                node: a.to_string(),
+            });
+        }
+        Ok((na, nb))
+    }
+
+    /// Sets the tolerance (a fraction) of the part added last under `name`.
+    pub fn tolerance(&mut self, name: &str, fraction: f64) -> Result<(), NetworkError> {
+        if !(fraction.is_finite() && (0.0..1.0).contains(&fraction)) {
+            return Err(NetworkError::OutOfRange {
+                part: name.to_string(),
+                what: "tolerance",
+                value: fraction,
+            });
+        }
+        if let Some(&i) = self.names.get(name) {
+            if let Some(p) = self.parts.get_mut(i) {
+                p.2 = Some(fraction);
+            }
+        }
+        Ok(())
+    }
+
+    /// Adds a resistor.
+    pub fn resistor(
+        &mut self,
+        name: &str,
+        a: &str,
+        b: &str,
+        ohms: f64,
+    ) -> Result<PartId, NetworkError> {
+        let ohms = check_positive(name, "resistance", ohms)?;
+        let (a, b) = self.two(name, a, b)?;
+        self.add(name, Some(PartKind::Resistor { a, b, ohms }))
+            .map(PartId)
+    }
+
+    /// Adds a capacitor.
+    pub fn capacitor(
+        &mut self,
+        name: &str,
+        a: &str,
+        b: &str,
+        farads: f64,
+    ) -> Result<PartId, NetworkError> {
+        let farads = check_positive(name, "capacitance", farads)?;
+        let (a, b) = self.two(name, a, b)?;
+        self.add(name, Some(PartKind::Capacitor { a, b, farads }))
+            .map(PartId)
+    }
+
+    /// Adds an inductor; `a` is its dotted end.
+    pub fn inductor(
+        &mut self,
+        name: &str,
+        a: &str,
+        b: &str,
+        henries: f64,
+    ) -> Result<PartId, NetworkError> {
+        let henries = check_positive(name, "inductance", henries)?;
+        let (a, b) = self.two(name, a, b)?;
+        self.add(name, Some(PartKind::Inductor { a, b, henries }))
+            .map(PartId)
+    }
+
+    /// Couples two inductors (named; they may be added later) with coefficient `k`.
+    pub fn coupling(
+        &mut self,
+        name: &str,
+        first: &str,
+        second: &str,
+        k: f64,
+    ) -> Result<PartId, NetworkError> {
+        if !(k.is_finite() && k > 0.0 && k <= 1.0) {
+            return Err(NetworkError::CouplingOutOfRange {
+                part: name.to_string(),
+                k,
+            });
+        }
+        let i = self.add(name, None)?;
+        self.pending.insert(
+            i,
+            Pending::Coupling {
+                first: first.to_string(),
+                second: second.to_string(),
+                k,
+            },
+        );
+        Ok(PartId(i))
+    }
+
+    /// Adds an independent voltage source, V(plus) − V(minus) = phasor.
+    pub fn voltage_source(
+        &mut self,
+        name: &str,
+        plus: &str,
+        minus: &str,
+        phasor: Complex64,
+    ) -> Result<PartId, NetworkError> {
+        let phasor = check_phasor(name, phasor)?;
+        let (plus, minus) = self.two(name, plus, minus)?;
+        self.add(
+            name,
+            Some(PartKind::VoltageSource {
+                plus,
+                minus,
+                phasor,
+            }),
+        )
+        .map(PartId)
+    }
+
+    /// Adds an independent current source; the current flows through it from `from` to `to`.
+    pub fn current_source(
+        &mut self,
+        name: &str,
+        from: &str,
+        to: &str,
+        phasor: Complex64,
+    ) -> Result<PartId, NetworkError> {
+        let phasor = check_phasor(name, phasor)?;
+        let (from, to) = self.two(name, from, to)?;
+        self.add(name, Some(PartKind::CurrentSource { from, to, phasor }))
+            .map(PartId)
+    }
+
+    /// Adds a voltage-controlled voltage source.
+    pub fn vcvs(
+        &mut self,
+        name: &str,
+        out: (&str, &str),
+        sense: (&str, &str),
+        gain: f64,
+    ) -> Result<PartId, NetworkError> {
+        let gain = check_range(name, "gain", gain)?;
+        let (plus, minus) = self.two(name, out.0, out.1)?;
+        let (cp, cn) = self.two(name, sense.0, sense.1)?;
+        self.add(
+            name,
+            Some(PartKind::Vcvs {
+                plus,
+                minus,
+                cp,
+                cn,
+                gain,
+            }),
+        )
+        .map(PartId)
+    }
+
+    /// Adds a voltage-controlled current source.
+    pub fn vccs(
+        &mut self,
+        name: &str,
+        out: (&str, &str),
+        sense: (&str, &str),
+        gm: f64,
+    ) -> Result<PartId, NetworkError> {
+        let gm = check_range(name, "transconductance", gm)?;
+        let (from, to) = self.two(name, out.0, out.1)?;
+        let (cp, cn) = self.two(name, sense.0, sense.1)?;
+        self.add(
+            name,
+            Some(PartKind::Vccs {
+                from,
+                to,
+                cp,
+                cn,
+                gm,
+            }),
+        )
+        .map(PartId)
+    }
+
+    /// Adds a current-controlled voltage source sensing the current of part `control`.
+    pub fn ccvs(
+        &mut self,
+        name: &str,
+        out: (&str, &str),
+        control: &str,
+        rm: f64,
+    ) -> Result<PartId, NetworkError> {
+        let rm = check_range(name, "transresistance", rm)?;
+        let (plus, minus) = self.two(name, out.0, out.1)?;
+        let i = self.add(name, None)?;
+        self.pending.insert(
+            i,
+            Pending::Ccvs {
+                plus,
+                minus,
+                control: control.to_string(),
+                rm,
+            },
+        );
+        Ok(PartId(i))
+    }
+
+    /// Adds a current-controlled current source sensing the current of part `control`.
+    pub fn cccs(
+        &mut self,
+        name: &str,
+        out: (&str, &str),
+        control: &str,
+        gain: f64,
+    ) -> Result<PartId, NetworkError> {
+        let gain = check_range(name, "current gain", gain)?;
+        let (from, to) = self.two(name, out.0, out.1)?;
+        let i = self.add(name, None)?;
+        self.pending.insert(
+            i,
+            Pending::Cccs {
+                from,
+                to,
+                control: control.to_string(),
+                gain,
+            },
+        );
+        Ok(PartId(i))
+    }
+
+    /// Adds an ideal op-amp.
+    pub fn ideal_opamp(
+        &mut self,
+        name: &str,
+        noninverting: &str,
+        inverting: &str,
+        output: &str,
+    ) -> Result<PartId, NetworkError> {
+        let (noninverting, inverting) = self.two(name, noninverting, inverting)?;
+        let output = self.node(output)?;
+        if output.is_ground() {
+            return Err(NetworkError::GroundedOutput {
+                part: name.to_string(),
+            });
+        }
+        self.add(
+            name,
+            Some(PartKind::IdealOpamp {
+                noninverting,
+                inverting,
+                output,
+            }),
+        )
+        .map(PartId)
+    }
+
+    /// Adds an op-amp with DC gain `dc_gain` and gain-bandwidth product `gbw` (Hz).
+    pub fn single_pole_opamp(
+        &mut self,
+        name: &str,
+        noninverting: &str,
+        inverting: &str,
+        output: &str,
+        dc_gain: f64,
+        gbw: f64,
+    ) -> Result<PartId, NetworkError> {
+        let dc_gain = check_positive(name, "DC gain", dc_gain)?;
+        let gbw = check_positive(name, "gain-bandwidth product", gbw)?;
+        let (noninverting, inverting) = self.two(name, noninverting, inverting)?;
+        let output = self.node(output)?;
+        if output.is_ground() {
+            return Err(NetworkError::GroundedOutput {
+                part: name.to_string(),
+            });
+        }
+        self.add(
+            name,
+            Some(PartKind::SinglePoleOpamp {
+                noninverting,
+                inverting,
+                output,
+                dc_gain,
+                gbw,
+            }),
+        )
+        .map(PartId)
+    }
+
+    fn resolve(
+        &self,
+        part: &str,
+        role: &'static str,
+        target: &str,
+    ) -> Result<PartId, NetworkError> {
+        match self.names.get(target) {
+            Some(&i) => Ok(PartId(i)),
+            None => Err(NetworkError::MissingPart {
+                part: part.to_string(),
+                role,
+                target: target.to_string(),
+            }),
+        }
+    }
+
+    /// Resolves references and returns the checked network.
+    pub fn build(self) -> Result<Network, NetworkError> {
+        let mut kinds: Vec<Option<PartKind>> = self.parts.iter().map(|p| p.1.clone()).collect();
+        // Non-pending parts first, so that controls can be checked for kind.
+        let mut pending: Vec<(&usize, &Pending)> = self.pending.iter().collect();
+        pending.sort_by_key(|(i, _)| **i);
+        let mut coupled: Vec<(PartId, PartId)> = Vec::new();
+        for &(&i, p) in &pending {
+            let name = &self.parts[i].0;
+            let kind = match p {
+                Pending::Coupling { first, second, k } => {
+                    let f = self.resolve(name, "coupled inductor", first)?;
+                    let s = self.resolve(name, "coupled inductor", second)?;
+                    for (id, target) in [(f, first), (s, second)] {
+                        if !matches!(kinds[id.0], Some(PartKind::Inductor { .. })) {
+                            return Err(NetworkError::WrongKind {
+                                part: name.clone(),
+                                role: "coupled inductor",
+                                target: target.clone(),
+                                found: kind_word(&kinds, &self.pending, id.0),
+                                expected: "an inductor",
+                            });
+                        }
+                    }
+                    if f == s {
+                        return Err(NetworkError::BadCoupling {
+                            part: name.clone(),
+                            reason: format!("couples inductor {first:?} to itself"),
+                        });
+                    }
+                    let key = (f.min(s), f.max(s));
+                    if coupled.contains(&key) {
+                        return Err(NetworkError::BadCoupling {
+                            part: name.clone(),
+                            reason: format!(
+                                "inductors {first:?} and {second:?} are already coupled"
+                            ),
+                        });
+                    }
+                    coupled.push(key);
+                    PartKind::Coupling {
+                        first: f,
+                        second: s,
+                        k: *k,
+                    }
+                }
+                Pending::Ccvs {
+                    plus,
+                    minus,
+                    control,
+                    rm,
+                } => PartKind::Ccvs {
+                    plus: *plus,
+                    minus: *minus,
+                    control: self.sensable(name, control, &kinds)?,
+                    rm: *rm,
+                },
+                Pending::Cccs {
+                    from,
+                    to,
+                    control,
+                    gain,
+                } => PartKind::Cccs {
+                    from: *from,
+                    to: *to,
+                    control: self.sensable(name, control, &kinds)?,
+                    gain: *gain,
+                },
+            };
+            kinds[i] = Some(kind);
+        }
+        let mut parts = Vec::with_capacity(self.parts.len());
+        for ((name, _, tolerance), kind) in self.parts.into_iter().zip(kinds) {
+            // Every entry is Some here: non-pending ones from the start, pending ones above.
+            if let Some(kind) = kind {
+                parts.push(Part {
+                    name,
+                    kind,
+                    tolerance,
+                });
+            }
+        }
+        Ok(Network {
+            title: self.title,
+            nodes: self.nodes,
+            parts,
+        })
+    }
+
+    fn sensable(
+        &self,
+        name: &str,
+        control: &str,
+        kinds: &[Option<PartKind>],
+    ) -> Result<PartId, NetworkError> {
+        let id = self.resolve(name, "control", control)?;
+        let ok = match &kinds[id.0] {
+            Some(k) => k.has_sensable_current(),
+            // A pending CCVS is fine (its current is a branch unknown); a CCCS or coupling is not.
+            None => matches!(self.pending.get(&id.0), Some(Pending::Ccvs { .. })),
+        };
+        if !ok {
+            return Err(NetworkError::WrongKind {
+                part: name.to_string(),
+                role: "control",
+                target: control.to_string(),
+                found: kind_word(kinds, &self.pending, id.0),
+                expected: "a part with a current of its own (not a coupling or a cccs)",
+            });
+        }
+        Ok(id)
+    }
+}
+
+fn kind_word(
+    kinds: &[Option<PartKind>],
+    pending: &HashMap<usize, Pending>,
+    i: usize,
+) -> &'static str {
+    match kinds.get(i) {
+        Some(Some(k)) => k.word(),
+        _ => match pending.get(&i) {
+            Some(Pending::Coupling { .. }) => "coupling",
+            Some(Pending::Ccvs { .. }) => "ccvs",
+            Some(Pending::Cccs { .. }) => "cccs",
+            None => "part",
+        },
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn refuses_bad_values_and_references() {
+        let mut b = NetworkBuilder::new("t");
+        assert!(matches!(
+            b.resistor("R1", "a", "gnd", 0.0),
+            Err(NetworkError::NotPositive { .. })
+        ));
+        assert!(matches!(
+            b.capacitor("C1", "a", "gnd", f64::NAN),
+            Err(NetworkError::NotPositive { .. })
+        ));
+        b.resistor("R1", "a", "gnd", 1.0).unwrap();
+        assert!(matches!(
+            b.resistor("R1", "a", "b", 1.0),
+            Err(NetworkError::DuplicateName { .. })
+        ));
+        assert!(matches!(
+            b.coupling("K1", "L1", "L2", 1.5),
+            Err(NetworkError::CouplingOutOfRange { .. })
+        ));
+        b.coupling("K1", "L1", "R1", 0.5).unwrap();
+        let err = b.clone().build().unwrap_err();
+        assert_eq!(
+            err.to_string(),
+            "K1: coupled inductor \"L1\" is not a part of this design"
+        );
+        let mut b = NetworkBuilder::new("t");
+        b.resistor("R1", "a", "gnd", 1.0).unwrap();
+        b.inductor("L1", "a", "gnd", 1.0).unwrap();
+        b.coupling("K1", "L1", "R1", 0.5).unwrap();
+        assert_eq!(
+            b.build().unwrap_err().to_string(),
+            "K1: coupled inductor \"R1\" is a resistor, expected an inductor"
+        );
+        let mut b = NetworkBuilder::new("t");
+        b.cccs("F1", ("a", "gnd"), "F2", 2.0).unwrap();
+        b.cccs("F2", ("a", "gnd"), "F1", 2.0).unwrap();
+        assert!(matches!(b.build(), Err(NetworkError::WrongKind { .. })));
+    }
+}

@@ -1,0 +1,381 @@
+//! Frequency grids and the parallel evaluation that fills a columnar result.
+//!
+//! A log grid from `f₁` to `f₂` at `d` points per decade has `m = ⌈d·log10(f₂/f₁)⌉` intervals
+//! and point `k = 0..=m` at `f₁·(f₂/f₁)^(k/m)`, so both ends are exact and no error builds up
+//! from adding steps. A linear grid of `N` points has point `k` at `f₁ + (f₂ − f₁)·k/(N − 1)`.
+//!
+//! The sweep cuts the grid into fixed chunks and evaluates them on rayon's pool, one
+//! workspace per worker; results are stored by index, so the output never depends on the
+//! number of threads or the order in which chunks finish.
+
+use crate::response::{AnalysisError, Evaluator, Point};
+use crate::units::{format_eng, Hertz};
+use rayon::prelude::*;
+
+/// Largest number of points a grid may have.
+pub const MAX_POINTS: usize = 100_000_000;
+
+/// A frequency grid, validated when built.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Grid {
+    /// Log-spaced with both ends exact.
+    Log {
+        /// First frequency (Hz, > 0).
+        from: Hertz,
+        /// Last frequency (Hz).
+        to: Hertz,
+        /// Number of intervals.
+        intervals: usize,
+    },
+    /// Linearly spaced.
+    Linear {
+        /// First frequency (Hz, ≥ 0).
+        from: Hertz,
+        /// Last frequency (Hz).
+        to: Hertz,
+        /// Number of points.
+        points: usize,
+    },
+    /// An explicit list, ascending.
+    List(Vec<Hertz>),
+}
+
+/// Why a grid is not usable.
+#[derive(Clone, Debug, PartialEq, thiserror::Error)]
+#[non_exhaustive]
+pub enum GridError {
+    /// A log grid must start above 0 Hz.
+    #[error("a log-spaced sweep must start above 0 Hz (got {from} Hz); use a list or a linear sweep to include 0 Hz")]
+    LogFromZero {
+        /// The start given.
+        from: Hertz,
+    },
+    /// Negative or non-finite frequency.
+    #[error("frequency {value} Hz is not a finite number ≥ 0")]
+    BadFrequency {
+        /// The value.
+        value: Hertz,
+    },
+    /// End below start.
+    #[error("the sweep ends ({to} Hz) below where it starts ({from} Hz)")]
+    Reversed {
+        /// Start.
+        from: Hertz,
+        /// End.
+        to: Hertz,
+    },
+    /// Zero points or density.
+    #[error("the sweep needs at least {min} {what}, got {got}")]
+    TooFew {
+        /// What is counted.
+        what: &'static str,
+        /// The least allowed.
+        min: usize,
+        /// What was given.
+        got: f64,
+    },
+    /// More points than the cap.
+    #[error("the sweep would have {points} points, more than the limit of {MAX_POINTS}; lower the density or narrow the range")]
+    TooMany {
+        /// Points requested.
+        points: f64,
+    },
+    /// A list not in ascending order.
+    #[error("the frequency list is not in ascending order at {value} Hz")]
+    NotAscending {
+        /// The first value out of order.
+        value: Hertz,
+    },
+}
+
+fn check_freq(value: Hertz) -> Result<Hertz, GridError> {
+    if value.is_finite() && value >= 0.0 {
+        Ok(value)
+    } else {
+        Err(GridError::BadFrequency { value })
+    }
+}
+
+impl Grid {
+    /// A log grid with at least `per_decade` points per decade.
+    pub fn log(from: Hertz, to: Hertz, per_decade: f64) -> Result<Grid, GridError> {
+        let (from, to) = (check_freq(from)?, check_freq(to)?);
+        if from <= 0.0 {
+            return Err(GridError::LogFromZero { from });
+        }
+        if to < from {
+            return Err(GridError::Reversed { from, to });
+        }
+        if !(per_decade.is_finite() && per_decade >= 1.0) {
+            return Err(GridError::TooFew {
+                what: "point per decade",
+                min: 1,
+                got: per_decade,
+            });
+        }
+        let decades = (to / from).log10();
+        // A tiny tolerance so 5 decades at 100/decade is 500 intervals, not 501.
+        let intervals = (decades * per_decade - 1e-9)
+            .ceil()
+            .max(if to > from { 1.0 } else { 0.0 });
+        if intervals + 1.0 > MAX_POINTS as f64 {
+            return Err(GridError::TooMany {
+                points: intervals + 1.0,
+            });
+        }
+        Ok(Grid::Log {
+            from,
+            to,
+            intervals: intervals as usize,
+        })
+    }
+
+    /// A linear grid of `points` points (two or more, or one when from == to).
+    pub fn linear(from: Hertz, to: Hertz, points: usize) -> Result<Grid, GridError> {
+        let (from, to) = (check_freq(from)?, check_freq(to)?);
+        if to < from {
+            return Err(GridError::Reversed { from, to });
+        }
+        let min = if to > from { 2 } else { 1 };
+        if points < min {
+            return Err(GridError::TooFew {
+                what: "points",
+                min,
+                got: points as f64,
+            });
+        }
+        if points > MAX_POINTS {
+            return Err(GridError::TooMany {
+                points: points as f64,
+            });
+        }
+        Ok(Grid::Linear { from, to, points })
+    }
+
+    /// An explicit ascending list of frequencies.
+    pub fn list(values: Vec<Hertz>) -> Result<Grid, GridError> {
+        if values.is_empty() {
+            return Err(GridError::TooFew {
+                what: "frequency",
+                min: 1,
+                got: 0.0,
+            });
+        }
+        if values.len() > MAX_POINTS {
+            return Err(GridError::TooMany {
+                points: values.len() as f64,
+            });
+        }
+        for w in values.windows(2) {
+            if w[1] <= w[0] {
+                return Err(GridError::NotAscending { value: w[1] });
+            }
+        }
+        for &v in &values {
+            check_freq(v)?;
+        }
+        Ok(Grid::List(values))
+    }
+
+    /// Number of points.
+    pub fn len(&self) -> usize {
+        match self {
+            Grid::Log { intervals, .. } => intervals + 1,
+            Grid::Linear { points, .. } => *points,
+            Grid::List(v) => v.len(),
+        }
+    }
+
+    /// Whether the grid has no points (never true for a validated grid).
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    /// Point k, computed from its index.
+    pub fn at(&self, k: usize) -> Hertz {
+        match *self {
+            Grid::Log {
+                from,
+                to,
+                intervals,
+            } => {
+                if k == 0 {
+                    from
+                } else if k >= intervals {
+                    to
+                } else {
+                    from * (to / from).powf(k as f64 / intervals as f64)
+                }
+            }
+            Grid::Linear { from, to, points } => {
+                if points <= 1 || k == 0 {
+                    from
+                } else if k + 1 >= points {
+                    to
+                } else {
+                    from + (to - from) * (k as f64 / (points - 1) as f64)
+                }
+            }
+            Grid::List(ref v) => v.get(k).copied().unwrap_or(f64::NAN),
+        }
+    }
+
+    /// The first and last frequency.
+    pub fn bounds(&self) -> (Hertz, Hertz) {
+        (self.at(0), self.at(self.len().saturating_sub(1)))
+    }
+
+    /// Whether 0 Hz is on the grid.
+    pub fn has_dc(&self) -> bool {
+        self.at(0) == 0.0
+    }
+
+    /// All points.
+    pub fn points(&self) -> Vec<Hertz> {
+        (0..self.len()).map(|k| self.at(k)).collect()
+    }
+
+    /// A short description, e.g. "10 Hz … 1 MHz, 501 points, log".
+    pub fn describe(&self) -> String {
+        let (a, b) = self.bounds();
+        let kind = match self {
+            Grid::Log { .. } => "log",
+            Grid::Linear { .. } => "linear",
+            Grid::List(_) => "list",
+        };
+        format!(
+            "{} … {}, {} points, {kind}",
+            format_eng(a, 5, "Hz"),
+            format_eng(b, 5, "Hz"),
+            self.len()
+        )
+    }
+}
+
+/// Options of a sweep run.
+#[derive(Clone, Debug, Default)]
+pub struct SweepOptions {
+    /// Also compute ω-derivatives (for group delay).
+    pub derivatives: bool,
+    /// Run on the calling thread only.
+    pub sequential: bool,
+}
+
+/// A sweep's result, by column: `values[r][k]` is response r at frequency k.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Sweep {
+    /// The frequencies (Hz).
+    pub freqs: Vec<Hertz>,
+    /// Response values, one column per response.
+    pub values: Vec<Vec<num_complex::Complex64>>,
+    /// Group delays (s), one column per response, when derivatives were requested.
+    pub delays: Option<Vec<Vec<f64>>>,
+}
+
+/// Points per chunk handed to a worker.
+const CHUNK: usize = 512;
+
+/// Evaluates every response at every grid point in parallel (or on this thread). Stops at the
+/// lowest frequency that fails and returns its error; no partial result is returned.
+pub fn run<'a>(
+    ev: &Evaluator<'a>,
+    grid: &Grid,
+    opts: &SweepOptions,
+) -> Result<Sweep, AnalysisError> {
+    let n = grid.len();
+    let nr = ev.analysis().responses().len();
+    if grid.has_dc() {
+        ev.analysis().check_dc()?;
+    }
+    let mut flat = vec![Point::default(); n * nr];
+    let work = |ws: &mut crate::response::Workspace<'a>, (ci, chunk): (usize, &mut [Point])| {
+        let first = ci * CHUNK;
+        for (j, out) in chunk.chunks_mut(nr.max(1)).enumerate() {
+            let f = grid.at(first + j);
+            let pts = ev.at(ws, f, opts.derivatives)?;
+            out.copy_from_slice(pts);
+        }
+        Ok::<(), AnalysisError>(())
+    };
+    let step = CHUNK * nr.max(1);
+    let results: Vec<Result<(), AnalysisError>> = if opts.sequential {
+        let mut ws = ev.workspace();
+        flat.chunks_mut(step)
+            .enumerate()
+            .map(|c| work(&mut ws, c))
+            .collect()
+    } else {
+        flat.par_chunks_mut(step)
+            .enumerate()
+            .map_init(|| ev.workspace(), work)
+            .collect()
+    };
+    if let Some(err) = results.into_iter().find_map(Result::err) {
+        return Err(err);
+    }
+    let freqs = grid.points();
+    let mut values = vec![Vec::with_capacity(n); nr];
+    let mut delays = opts.derivatives.then(|| vec![Vec::with_capacity(n); nr]);
+    for row in flat.chunks(nr.max(1)) {
+        for (r, p) in row.iter().enumerate() {
+            values[r].push(p.value);
+            if let Some(d) = delays.as_mut() {
+                d[r].push(p.group_delay());
+            }
+        }
+    }
+    Ok(Sweep {
+        freqs,
+        values,
+        delays,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn log_grid_has_exact_ends_and_density() {
+        let g = Grid::log(10.0, 1e6, 100.0).unwrap();
+        assert_eq!(g.len(), 501);
+        assert_eq!(g.at(0), 10.0);
+        assert_eq!(g.at(500), 1e6);
+        assert!((g.at(100) - 100.0).abs() < 1e-9);
+        let g = Grid::log(1.0, 3.0, 10.0).unwrap();
+        assert_eq!(g.len(), 6); // ⌈10·0.477⌉ = 5 intervals
+        assert_eq!(g.at(5), 3.0);
+    }
+
+    #[test]
+    fn refuses_bad_grids() {
+        assert_eq!(
+            Grid::log(0.0, 1e3, 10.0).unwrap_err().to_string(),
+            "a log-spaced sweep must start above 0 Hz (got 0 Hz); use a list or a linear sweep to include 0 Hz"
+        );
+        assert!(matches!(
+            Grid::log(1e3, 10.0, 10.0),
+            Err(GridError::Reversed { .. })
+        ));
+        assert!(matches!(
+            Grid::log(1.0, 10.0, 0.0),
+            Err(GridError::TooFew { .. })
+        ));
+        assert!(matches!(
+            Grid::log(1e-3, 1e12, 1e7),
+            Err(GridError::TooMany { .. })
+        ));
+        assert!(matches!(
+            Grid::linear(0.0, 10.0, 1),
+            Err(GridError::TooFew { .. })
+        ));
+        assert!(matches!(
+            Grid::list(vec![1.0, 1.0]),
+            Err(GridError::NotAscending { .. })
+        ));
+        assert!(matches!(
+            Grid::list(vec![f64::NAN]),
+            Err(GridError::BadFrequency { .. })
+        ));
+    }
+}

@@ -1,0 +1,494 @@
+//! Engineering values: reading them from text and writing them back.
+//!
+//! Accepted forms (all case-sensitive, because `m` and `M` differ by nine decades):
+//!
+//! * plain numbers and exponents: `50`, `0.1`, `2.2e-9`, `-3`;
+//! * an SI prefix after the number, with or without a space: `10k`, `2.2 n`, `4.7µ`
+//!   (prefixes `f p n u µ m k M G T`; `K` is read as kilo, as it is often written);
+//! * an optional unit word after the prefix, which must fit the quantity: `10 kΩ`, `10kohm`,
+//!   `2.2 nF`, `4.7 µH`, `1 MHz`, `1 mA`, `1 V`, `2 mS`;
+//! * the letter code of IEC 60062, where the prefix letter stands for the decimal point:
+//!   `4k7` = 4.7 k, `2n2` = 2.2 n, `1R5` = 1.5, `0R22` = 0.22, `4M7` = 4.7 M;
+//! * for tolerances a percentage: `1%`, `0.5 %`.
+//!
+//! Anything else (`10kk`, `""`, `1e999`, `NaN`, `-`, `4k7k`) is an error that says what was
+//! expected. Magnitudes beyond 1e±30 are refused: no real part has them, and they are the
+//! usual sign of a typing slip.
+//!
+//! [`format_eng`] is the one place that writes values back in engineering notation, so the
+//! printed table, the JSON figures and the plot labels agree.
+
+use std::fmt;
+
+/// Frequency in hertz.
+pub type Hertz = f64;
+/// Angular frequency in radians per second.
+pub type RadPerSec = f64;
+/// A level in decibels.
+pub type Decibels = f64;
+/// An angle in degrees.
+pub type Degrees = f64;
+/// Resistance or impedance magnitude in ohms.
+pub type Ohms = f64;
+/// Time in seconds.
+pub type Seconds = f64;
+
+/// Largest magnitude a value may have; the smallest non-zero one is its reciprocal.
+pub const VALUE_LIMIT: f64 = 1e30;
+
+/// The physical quantity a value text is read as; it decides which unit word is accepted.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Quantity {
+    /// Ohms (`Ω`, `ohm`, `ohms`, or `R` in the letter code).
+    Resistance,
+    /// Farads (`F`).
+    Capacitance,
+    /// Henries (`H`).
+    Inductance,
+    /// Hertz (`Hz`).
+    Frequency,
+    /// Volts (`V`).
+    Voltage,
+    /// Amperes (`A`).
+    Current,
+    /// Siemens (`S`).
+    Conductance,
+    /// A plain number with no unit word (gains, coupling coefficients).
+    Ratio,
+    /// Degrees (`°`, `deg`), for source phases.
+    Angle,
+    /// A percentage (`%`), for tolerances; the value returned is a fraction (1% → 0.01).
+    Percent,
+}
+
+impl Quantity {
+    /// The unit words accepted after the prefix.
+    fn unit_words(self) -> &'static [&'static str] {
+        match self {
+            Quantity::Resistance => &["Ω", "ohms", "ohm", "Ohm", "R"],
+            Quantity::Capacitance => &["F"],
+            Quantity::Inductance => &["H"],
+            Quantity::Frequency => &["Hz"],
+            Quantity::Voltage => &["V"],
+            Quantity::Current => &["A"],
+            Quantity::Conductance => &["S"],
+            Quantity::Ratio => &[],
+            Quantity::Angle => &["°", "deg"],
+            Quantity::Percent => &["%"],
+        }
+    }
+
+    /// An example of a well-formed value, for error messages.
+    fn example(self) -> &'static str {
+        match self {
+            Quantity::Resistance => "4k7, 10 kΩ or 1R5",
+            Quantity::Capacitance => "2n2, 100 nF or 1e-9",
+            Quantity::Inductance => "4.7 µH, 10m or 1e-3",
+            Quantity::Frequency => "1 kHz, 2.5MHz or 50",
+            Quantity::Voltage => "1 V, 500m or 2.5",
+            Quantity::Current => "1 mA, 10u or 0.5",
+            Quantity::Conductance => "2 mS or 0.01",
+            Quantity::Ratio => "0.98, 100k or 2e5",
+            Quantity::Angle => "30 deg, -90 or 45°",
+            Quantity::Percent => "1%, 0.5 % or 5%",
+        }
+    }
+
+    /// The name used in messages.
+    pub fn name(self) -> &'static str {
+        match self {
+            Quantity::Resistance => "resistance",
+            Quantity::Capacitance => "capacitance",
+            Quantity::Inductance => "inductance",
+            Quantity::Frequency => "frequency",
+            Quantity::Voltage => "voltage",
+            Quantity::Current => "current",
+            Quantity::Conductance => "conductance",
+            Quantity::Ratio => "plain number",
+            Quantity::Angle => "angle",
+            Quantity::Percent => "percentage",
+        }
+    }
+}
+
+/// Why a value text could not be read. The message names the text and what was expected.
+#[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
+#[error("{reason} in {text:?}; expected a {quantity} such as {example}")]
+pub struct ValueError {
+    /// The text as given.
+    pub text: String,
+    /// What went wrong.
+    pub reason: String,
+    /// The quantity that was being read.
+    pub quantity: &'static str,
+    /// A well-formed example.
+    pub example: &'static str,
+}
+
+fn prefix_factor(c: char) -> Option<f64> {
+    Some(match c {
+        'f' => 1e-15,
+        'p' => 1e-12,
+        'n' => 1e-9,
+        'u' | 'µ' | 'μ' => 1e-6,
+        'm' => 1e-3,
+        'k' | 'K' => 1e3,
+        'M' => 1e6,
+        'G' => 1e9,
+        'T' => 1e12,
+        _ => return None,
+    })
+}
+
+/// Reads an engineering value as the given quantity. Returns the value in SI base units
+/// (a percentage as a fraction). Never panics; every failure is a [`ValueError`].
+///
+/// ```
+/// use analyzer_core::units::{parse_value, Quantity};
+/// assert_eq!(parse_value("4k7", Quantity::Resistance).unwrap(), 4700.0);
+/// assert!((parse_value("2.2 nF", Quantity::Capacitance).unwrap() - 2.2e-9).abs() < 1e-24);
+/// assert!(parse_value("10kk", Quantity::Resistance).is_err());
+/// ```
+pub fn parse_value(text: &str, quantity: Quantity) -> Result<f64, ValueError> {
+    let fail = |reason: &str| ValueError {
+        text: text.to_string(),
+        reason: reason.to_string(),
+        quantity: quantity.name(),
+        example: quantity.example(),
+    };
+    let s = text.trim();
+    if s.is_empty() {
+        return Err(fail("empty value"));
+    }
+    let chars: Vec<(usize, char)> = s.char_indices().collect();
+    let mut i = 0;
+    let mut negative = false;
+    if let Some(&(_, c)) = chars.first() {
+        if c == '-' || c == '+' {
+            negative = c == '-';
+            i = 1;
+        }
+    }
+    let digits_from = |mut j: usize| {
+        while j < chars.len() && chars[j].1.is_ascii_digit() {
+            j += 1;
+        }
+        j
+    };
+    let int_start = i;
+    i = digits_from(i);
+    let int_digits = &s[byte_at(&chars, s, int_start)..byte_at(&chars, s, i)];
+    if int_digits.is_empty() && !(i < chars.len() && chars[i].1 == '.') {
+        return Err(fail("no digits"));
+    }
+
+    // The letter code: digits, a prefix letter (or R), digits, optional unit word.
+    if !int_digits.is_empty() && i < chars.len() {
+        let letter = chars[i].1;
+        let letter_factor = if letter == 'R' {
+            Some(1.0)
+        } else {
+            prefix_factor(letter)
+        };
+        let after = i + 1;
+        if let Some(factor) = letter_factor {
+            if after < chars.len() && chars[after].1.is_ascii_digit() {
+                let frac_end = digits_from(after);
+                let frac = &s[byte_at(&chars, s, after)..byte_at(&chars, s, frac_end)];
+                let rest = &s[byte_at(&chars, s, frac_end)..];
+                check_unit_word(rest.trim_start(), quantity, &fail)?;
+                if letter == 'R' && quantity != Quantity::Resistance {
+                    return Err(fail("the letter code R marks ohms"));
+                }
+                let number: f64 = format!("{int_digits}.{frac}")
+                    .parse()
+                    .map_err(|_| fail("unreadable number"))?;
+                return finish(number * factor, negative, &fail);
+            }
+        }
+    }
+
+    // A plain decimal number, optional exponent.
+    if i < chars.len() && chars[i].1 == '.' {
+        i = digits_from(i + 1);
+    }
+    let mantissa_end = i;
+    if mantissa_end == int_start || &s[byte_at(&chars, s, int_start)..byte_at(&chars, s, i)] == "."
+    {
+        return Err(fail("no digits"));
+    }
+    if i < chars.len() && (chars[i].1 == 'e' || chars[i].1 == 'E') {
+        let mut j = i + 1;
+        if j < chars.len() && (chars[j].1 == '-' || chars[j].1 == '+') {
+            j += 1;
+        }
+        let k = digits_from(j);
+        if k == j {
+            return Err(fail("exponent without digits"));
+        }
+        i = k;
+    }
+    let number_text = &s[byte_at(&chars, s, int_start)..byte_at(&chars, s, i)];
+    let number: f64 = number_text.parse().map_err(|_| fail("unreadable number"))?;
+    let rest = s[byte_at(&chars, s, i)..].trim_start();
+    let factor = read_suffix(rest, quantity, &fail)?;
+    finish(number * factor, negative, &fail)
+}
+
+fn byte_at(chars: &[(usize, char)], s: &str, i: usize) -> usize {
+    chars.get(i).map_or(s.len(), |&(b, _)| b)
+}
+
+/// Reads what follows the number: nothing, a unit word, a prefix, or a prefix and unit word.
+fn read_suffix(
+    rest: &str,
+    quantity: Quantity,
+    fail: &dyn Fn(&str) -> ValueError,
+) -> Result<f64, ValueError> {
+    if rest.is_empty() {
+        if quantity == Quantity::Percent {
+            return Err(fail("a tolerance needs the % sign"));
+        }
+        return Ok(1.0);
+    }
+    if quantity == Quantity::Percent {
+        return if rest == "%" {
+            Ok(0.01)
+        } else {
+            Err(fail("unexpected text after the number"))
+        };
+    }
+    if quantity.unit_words().contains(&rest) {
+        return Ok(1.0);
+    }
+    let mut it = rest.chars();
+    let first = it.next().unwrap_or(' ');
+    let tail = it.as_str();
+    if let Some(factor) = prefix_factor(first) {
+        if quantity == Quantity::Angle || quantity == Quantity::Percent {
+            return Err(fail("no prefix is allowed here"));
+        }
+        if tail.is_empty() || quantity.unit_words().contains(&tail) {
+            return Ok(factor);
+        }
+        if tail.chars().next().and_then(prefix_factor).is_some() {
+            return Err(fail("two prefixes"));
+        }
+        return Err(fail(&format!(
+            "unit {tail:?} does not fit a {}",
+            quantity.name()
+        )));
+    }
+    Err(fail(&format!(
+        "unit {rest:?} does not fit a {}",
+        quantity.name()
+    )))
+}
+
+fn check_unit_word(
+    rest: &str,
+    quantity: Quantity,
+    fail: &dyn Fn(&str) -> ValueError,
+) -> Result<(), ValueError> {
+    if rest.is_empty() || quantity.unit_words().contains(&rest) {
+        Ok(())
+    } else if rest.chars().next().and_then(prefix_factor).is_some() {
+        Err(fail("a prefix after the letter code"))
+    } else {
+        Err(fail(&format!(
+            "unit {rest:?} does not fit a {}",
+            quantity.name()
+        )))
+    }
+}
+
+fn finish(
+    magnitude: f64,
+    negative: bool,
+    fail: &dyn Fn(&str) -> ValueError,
+) -> Result<f64, ValueError> {
+    if !magnitude.is_finite() || magnitude > VALUE_LIMIT {
+        return Err(fail("magnitude above 1e30"));
+    }
+    if magnitude != 0.0 && magnitude < 1.0 / VALUE_LIMIT {
+        return Err(fail("magnitude below 1e-30"));
+    }
+    Ok(if negative { -magnitude } else { magnitude })
+}
+
+/// Writes `value` in engineering notation with `digits` significant digits and the unit,
+/// e.g. `format_eng(1591.549, 5, "Hz")` → `"1.5915 kHz"`. Prefixes from f to T; outside that
+/// range an exponent is used. Non-finite values are written as `inf`, `-inf` or `NaN`.
+pub fn format_eng(value: f64, digits: usize, unit: &str) -> String {
+    let sep = if unit.is_empty() { "" } else { " " };
+    if !value.is_finite() {
+        return format!("{value}{sep}{unit}");
+    }
+    if value == 0.0 {
+        return format!("0{sep}{unit}");
+    }
+    let digits = digits.clamp(1, 17);
+    // Round first, so 999.99 with 3 digits becomes 1.00 k rather than 1000.
+    let exp10 = value.abs().log10().floor() as i32;
+    let scale = 10f64.powi(digits as i32 - 1 - exp10);
+    let rounded = (value * scale).round() / scale;
+    let exp10 = rounded.abs().log10().floor() as i32;
+    let eng = exp10.div_euclid(3) * 3;
+    let prefix = match eng {
+        -15 => "f",
+        -12 => "p",
+        -9 => "n",
+        -6 => "µ",
+        -3 => "m",
+        0 => "",
+        3 => "k",
+        6 => "M",
+        9 => "G",
+        12 => "T",
+        _ => {
+            return format!("{:.*e}{sep}{unit}", digits - 1, rounded);
+        }
+    };
+    let mantissa = rounded / 10f64.powi(eng);
+    let decimals = (digits as i32 - 1 - (exp10 - eng)).max(0) as usize;
+    let sep = if unit.is_empty() && prefix.is_empty() {
+        ""
+    } else {
+        " "
+    };
+    format!("{mantissa:.decimals$}{sep}{prefix}{unit}")
+}
+
+/// A value with its unit that displays in engineering notation (5 significant digits).
+#[derive(Clone, Copy, Debug)]
+pub struct Eng(pub f64, pub &'static str);
+
+impl fmt::Display for Eng {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(&format_eng(self.0, 5, self.1))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn close(a: f64, b: f64) -> bool {
+        (a - b).abs() <= 1e-12 * b.abs().max(1e-300)
+    }
+
+    #[test]
+    fn reads_prefixes_units_and_letter_codes() {
+        // Letter codes as IEC 60062 writes them.
+        assert!(close(
+            parse_value("4k7", Quantity::Resistance).unwrap(),
+            4700.0
+        ));
+        assert!(close(
+            parse_value("2n2", Quantity::Capacitance).unwrap(),
+            2.2e-9
+        ));
+        assert!(close(
+            parse_value("1R5", Quantity::Resistance).unwrap(),
+            1.5
+        ));
+        assert!(close(
+            parse_value("0R22", Quantity::Resistance).unwrap(),
+            0.22
+        ));
+        assert!(close(
+            parse_value("4M7", Quantity::Resistance).unwrap(),
+            4.7e6
+        ));
+        assert!(close(
+            parse_value("10 kHz", Quantity::Frequency).unwrap(),
+            1e4
+        ));
+        assert!(close(
+            parse_value("10kΩ", Quantity::Resistance).unwrap(),
+            1e4
+        ));
+        assert!(close(
+            parse_value("10 kohm", Quantity::Resistance).unwrap(),
+            1e4
+        ));
+        assert!(close(
+            parse_value("100R", Quantity::Resistance).unwrap(),
+            100.0
+        ));
+        assert!(close(
+            parse_value("4.7 µH", Quantity::Inductance).unwrap(),
+            4.7e-6
+        ));
+        assert!(close(
+            parse_value("4.7uH", Quantity::Inductance).unwrap(),
+            4.7e-6
+        ));
+        assert!(close(
+            parse_value("1 F", Quantity::Capacitance).unwrap(),
+            1.0
+        ));
+        assert!(close(
+            parse_value("1 f", Quantity::Capacitance).unwrap(),
+            1e-15
+        ));
+        assert!(close(parse_value("1 mA", Quantity::Current).unwrap(), 1e-3));
+        assert!(close(
+            parse_value("2.2e-9", Quantity::Capacitance).unwrap(),
+            2.2e-9
+        ));
+        assert!(close(parse_value("-3", Quantity::Voltage).unwrap(), -3.0));
+        assert!(close(parse_value(".5", Quantity::Ratio).unwrap(), 0.5));
+        assert!(close(parse_value("1%", Quantity::Percent).unwrap(), 0.01));
+        assert!(close(
+            parse_value("0.5 %", Quantity::Percent).unwrap(),
+            0.005
+        ));
+        assert!(close(parse_value("30 deg", Quantity::Angle).unwrap(), 30.0));
+        assert!(close(
+            parse_value("1 MHz", Quantity::Frequency).unwrap(),
+            1e6
+        ));
+        assert!(close(
+            parse_value("1 mHz", Quantity::Frequency).unwrap(),
+            1e-3
+        ));
+    }
+
+    #[test]
+    fn refuses_garbage_with_a_reason() {
+        for (text, reason) in [
+            ("10kk", "two prefixes"),
+            ("", "empty value"),
+            ("1e999", "magnitude above 1e30"),
+            ("NaN", "no digits"),
+            ("inf", "no digits"),
+            ("-", "no digits"),
+            ("4k7k", "a prefix after the letter code"),
+            ("1e", "exponent without digits"),
+            ("10 kHz", "unit \"Hz\" does not fit a resistance"),
+            ("1e-40", "magnitude below 1e-30"),
+            (".", "no digits"),
+            ("1..2", "unit \".2\" does not fit a resistance"),
+        ] {
+            let err = parse_value(text, Quantity::Resistance).unwrap_err();
+            assert_eq!(err.reason, reason, "for {text:?}");
+            assert!(err.to_string().contains("expected a resistance such as"));
+        }
+        assert_eq!(
+            parse_value("1", Quantity::Percent).unwrap_err().reason,
+            "a tolerance needs the % sign"
+        );
+    }
+
+    #[test]
+    fn writes_engineering_notation() {
+        assert_eq!(format_eng(1591.549_430_9, 5, "Hz"), "1.5915 kHz");
+        assert_eq!(format_eng(-3.0103, 3, "dB"), "-3.01 dB");
+        assert_eq!(format_eng(999.999, 3, "Hz"), "1.00 kHz");
+        assert_eq!(format_eng(2.2e-9, 3, "F"), "2.20 nF");
+        assert_eq!(format_eng(0.0, 3, "V"), "0 V");
+        assert_eq!(format_eng(1e20, 3, "Hz"), "1.00e20 Hz");
+        assert_eq!(format_eng(7.0711, 3, ""), "7.07");
+    }
+}

@@ -1,0 +1,1 @@
+//! Reference suite: see tests/*.rs.
