@@ -1,1 +1,348 @@
-fn main() {}
+//! `analyzer`: sweeps a design file over frequency and writes CSV, SVG Bode plots and figures.
+//!
+//! A thin front end: it parses arguments, reads and writes files, and maps errors to exit
+//! codes. Every computation is in `analyzer-core`.
+
+mod output;
+mod report;
+
+use analyzer_core::design::{self, Design};
+use analyzer_core::metrics::{self, MetricOptions, Reference};
+use analyzer_core::response::Analysis;
+use analyzer_core::solve::SolverKind;
+use analyzer_core::sweep::{self, SweepOptions};
+use analyzer_core::units::{parse_value, Quantity};
+use clap::{Args, Parser, Subcommand, ValueEnum};
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+/// Exit code: a figure failed a check the user asked for.
+pub const EXIT_CHECK_FAILED: u8 = 1;
+/// Exit code: bad input (design file, arguments) or a network that cannot be solved.
+pub const EXIT_BAD_INPUT: u8 = 2;
+/// Exit code: an output could not be written.
+pub const EXIT_OUTPUT: u8 = 3;
+
+#[derive(Parser, Debug)]
+#[command(
+    name = "analyzer",
+    version,
+    about = "Frequency response of linear networks: magnitude, phase, group delay and the figures a design review asks for.",
+    long_about = "Frequency response of linear networks by the phasor method.\n\n\
+        A design file (TOML) describes the network's parts, the sweep and the responses to read \
+        (voltage ratios, transfer impedances, driving-point impedances, loop gains). `analyzer \
+        sweep` solves the network at every frequency of the sweep and writes, per response, a CSV \
+        of magnitude and phase and an SVG Bode plot, and prints the −3 dB points, peaks, notches, \
+        resonances with their Q, group delay and loop margins.\n\n\
+        Exit codes: 0 success; 1 a requested check failed; 2 bad input or usage, or a network \
+        that cannot be solved; 3 an output file could not be written.",
+    after_help = "Examples:\n  analyzer sweep sweeps/soil-probe-antialias.toml -o out/\n  analyzer sweep design.toml --only gain -o - > gain.csv\n  analyzer check design.toml"
+)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand, Debug)]
+enum Command {
+    /// Solve a design over its frequency sweep; write CSV and SVG per response and print figures.
+    Sweep(SweepArgs),
+    /// Read a design and check its topology without sweeping; print what it contains.
+    Check {
+        /// The design file (TOML).
+        design: PathBuf,
+    },
+}
+
+#[derive(Args, Debug)]
+struct SweepArgs {
+    /// The design file (TOML).
+    design: PathBuf,
+    /// Output directory for RESPONSE.csv and RESPONSE.svg, or `-` for CSV on stdout only
+    /// (figures then go to stderr). Default: a directory named after the design, beside it in
+    /// the current directory (`DESIGN-response/`).
+    #[arg(short, long, value_name = "DIR|-")]
+    output: Option<String>,
+    /// First frequency, overriding the design (e.g. `20 Hz`, `1k`).
+    #[arg(long, value_name = "FREQ")]
+    from: Option<String>,
+    /// Last frequency, overriding the design.
+    #[arg(long, value_name = "FREQ")]
+    to: Option<String>,
+    /// Log-spaced sweep with this many points per decade (overrides the design's spacing).
+    #[arg(long, value_name = "N", conflicts_with = "points")]
+    per_decade: Option<f64>,
+    /// Linearly spaced sweep with this many points (overrides the design's spacing).
+    #[arg(long, value_name = "N")]
+    points: Option<usize>,
+    /// Compute only these responses (comma-separated names from the design).
+    #[arg(long, value_name = "NAMES", value_delimiter = ',')]
+    only: Vec<String>,
+    /// Add group delay: a CSV column and a third plot panel.
+    #[arg(long)]
+    delay: bool,
+    /// Write phase wrapped to (−180°, 180°] instead of unwrapped along the sweep.
+    #[arg(long)]
+    wrapped: bool,
+    /// Level for the crossings, in dB relative to the reference (default −3.0103, the
+    /// half-power level). With `--reference absolute` the level is absolute.
+    #[arg(long, value_name = "DB", allow_hyphen_values = true)]
+    level: Option<f64>,
+    /// What the level is measured from: `max` (passband maximum), `absolute` (0 dB) or a
+    /// frequency such as `1 kHz`.
+    #[arg(long, value_name = "max|absolute|FREQ", default_value = "max")]
+    reference: String,
+    /// Write the figures as JSON to FILE, or `-` for stdout.
+    #[arg(long, value_name = "FILE|-")]
+    json: Option<String>,
+    /// Skip the SVG plots.
+    #[arg(long)]
+    no_plot: bool,
+    /// Solver path (default: chosen by size).
+    #[arg(long, value_enum, default_value_t = SolverArg::Auto)]
+    solver: SolverArg,
+    /// Worker threads (default: all cores).
+    #[arg(long, value_name = "N")]
+    threads: Option<usize>,
+    /// Print nothing but errors.
+    #[arg(short, long)]
+    quiet: bool,
+}
+
+#[derive(Clone, Copy, Debug, ValueEnum)]
+enum SolverArg {
+    Auto,
+    Small,
+    Dense,
+    Sparse,
+}
+
+/// An error with the exit code it maps to.
+#[derive(Debug)]
+pub struct Failure {
+    code: u8,
+    message: String,
+}
+
+impl Failure {
+    fn input(message: impl Into<String>) -> Self {
+        Failure {
+            code: EXIT_BAD_INPUT,
+            message: message.into(),
+        }
+    }
+    /// An output that could not be written.
+    pub fn output(message: impl Into<String>) -> Self {
+        Failure {
+            code: EXIT_OUTPUT,
+            message: message.into(),
+        }
+    }
+}
+
+fn main() -> ExitCode {
+    let cli = match Cli::try_parse() {
+        Ok(c) => c,
+        Err(e) => {
+            let code = if e.use_stderr() { EXIT_BAD_INPUT } else { 0 };
+            let _ = e.print();
+            return ExitCode::from(code);
+        }
+    };
+    let result = match cli.command {
+        Command::Sweep(args) => run_sweep(&args),
+        Command::Check { design } => run_check(&design),
+    };
+    match result {
+        Ok(code) => ExitCode::from(code),
+        Err(f) => {
+            eprintln!("error: {}", f.message);
+            ExitCode::from(f.code)
+        }
+    }
+}
+
+fn load(path: &Path) -> Result<Design, Failure> {
+    let shown = path.display();
+    let meta = std::fs::metadata(path).map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+    if meta.len() > design::MAX_DESIGN_BYTES as u64 {
+        return Err(Failure::input(format!(
+            "{shown}: the file is {} bytes, more than the limit of 64 MiB for a design",
+            meta.len()
+        )));
+    }
+    let text =
+        std::fs::read_to_string(path).map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+    design::parse(&text).map_err(|e| Failure::input(format!("{shown}:{e}")))
+}
+
+fn run_check(path: &Path) -> Result<u8, Failure> {
+    let d = load(path)?;
+    let shown = path.display();
+    let names: Vec<String> = d.responses.iter().map(|r| r.name.clone()).collect();
+    let analysis = Analysis::new(d.network, d.responses)
+        .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+    let net = analysis.network();
+    println!("{shown}: {}", net.title);
+    println!(
+        "  {} parts, {} nodes besides gnd, {} unknowns",
+        net.parts().len(),
+        net.node_count() - 1,
+        analysis.system().n
+    );
+    println!("  responses: {}", names.join(", "));
+    match d.sweep.grid() {
+        Ok(g) => println!("  sweep: {}", g.describe()),
+        Err(e) => println!("  sweep: {e}"),
+    }
+    println!("  topology: no floating nodes, no loops of voltage sources");
+    Ok(0)
+}
+
+fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
+    if let Some(n) = args.threads {
+        if n == 0 {
+            return Err(Failure::input("--threads must be at least 1"));
+        }
+        // Only fails if the pool was already built, which it is not at this point.
+        let _ = rayon::ThreadPoolBuilder::new()
+            .num_threads(n)
+            .build_global();
+    }
+    let mut d = load(&args.design)?;
+    let shown = args.design.display().to_string();
+    let freq = |s: &str, flag: &str| {
+        parse_value(s, Quantity::Frequency).map_err(|e| Failure::input(format!("--{flag}: {e}")))
+    };
+    if let Some(f) = &args.from {
+        d.sweep.from = Some(freq(f, "from")?);
+        d.sweep.at = None;
+    }
+    if let Some(t) = &args.to {
+        d.sweep.to = Some(freq(t, "to")?);
+        d.sweep.at = None;
+    }
+    if let Some(n) = args.per_decade {
+        d.sweep.per_decade = Some(n);
+        d.sweep.points = None;
+        d.sweep.at = None;
+    }
+    if let Some(n) = args.points {
+        d.sweep.points = Some(n);
+        d.sweep.at = None;
+    }
+    if d.sweep.at.is_none() && (d.sweep.from.is_none() || d.sweep.to.is_none()) {
+        return Err(Failure::input(format!(
+            "{shown}: the sweep range is not given: add [sweep] from and to, or pass --from and --to"
+        )));
+    }
+    let grid = d
+        .sweep
+        .grid()
+        .map_err(|e| Failure::input(format!("{shown}: sweep: {e}")))?;
+    if !args.only.is_empty() {
+        for name in &args.only {
+            if !d.responses.iter().any(|r| &r.name == name) {
+                let known: Vec<&str> = d.responses.iter().map(|r| r.name.as_str()).collect();
+                return Err(Failure::input(format!(
+                    "--only: the design has no response {name:?} (it has: {})",
+                    known.join(", ")
+                )));
+            }
+        }
+        d.responses.retain(|r| args.only.contains(&r.name));
+    }
+    let reference = match args.reference.trim() {
+        "max" => Reference::PassbandMaximum,
+        "absolute" => Reference::Absolute,
+        f => Reference::AtFrequency(freq(f, "reference")?),
+    };
+    let metric_opts = MetricOptions {
+        level_db: args.level.unwrap_or(metrics::HALF_POWER_DB),
+        reference,
+    };
+    if !metric_opts.level_db.is_finite() {
+        return Err(Failure::input("--level must be a finite number of dB"));
+    }
+    let solver = match args.solver {
+        SolverArg::Auto => SolverKind::Auto,
+        SolverArg::Small => SolverKind::Small,
+        SolverArg::Dense => SolverKind::Dense,
+        SolverArg::Sparse => SolverKind::Sparse,
+    };
+    let caution = d.caution;
+    let analysis = Analysis::new(d.network, d.responses)
+        .map_err(|e| Failure::input(format!("{shown}: {e}")))?
+        .with_solver(solver);
+    let ev = analysis
+        .evaluator()
+        .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+    let opts = SweepOptions {
+        derivatives: args.delay,
+        sequential: false,
+    };
+    let started = std::time::Instant::now();
+    let result =
+        sweep::run(&ev, &grid, &opts).map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+    let solve_time = started.elapsed();
+    let figures = (0..analysis.responses().len())
+        .map(|i| metrics::figures(&ev, &result, i, &metric_opts))
+        .collect::<Result<Vec<_>, _>>()
+        .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+
+    let to_stdout = args.output.as_deref() == Some("-");
+    let out_dir = match &args.output {
+        Some(o) if o != "-" => PathBuf::from(o),
+        _ => {
+            let stem = args
+                .design
+                .file_stem()
+                .map_or_else(|| "design".into(), |s| s.to_string_lossy().to_string());
+            PathBuf::from(format!("{stem}-response"))
+        }
+    };
+    let plan = output::Plan {
+        analysis: &analysis,
+        sweep: &result,
+        figures: &figures,
+        unwrap: !args.wrapped,
+        plots: !args.no_plot,
+    };
+    let mut written = Vec::new();
+    if to_stdout {
+        plan.csv_to_stdout()?;
+    } else {
+        written = plan.write_dir(&out_dir)?;
+    }
+    if let Some(j) = &args.json {
+        let text = report::json(&analysis, &grid, &figures, caution);
+        if j == "-" {
+            println!("{text}");
+        } else {
+            output::write_files(&[(PathBuf::from(j), text.into_bytes())])?;
+            written.push(PathBuf::from(j));
+        }
+    }
+    if !args.quiet {
+        let table = report::table(
+            &analysis,
+            &grid,
+            &figures,
+            caution,
+            solve_time,
+            ev.solver_kind(),
+        );
+        let files: Vec<String> = written.iter().map(|p| p.display().to_string()).collect();
+        let text = if files.is_empty() {
+            table
+        } else {
+            format!("{table}\nwrote {}\n", files.join(", "))
+        };
+        if to_stdout || args.json.as_deref() == Some("-") {
+            eprint!("{text}");
+        } else {
+            print!("{text}");
+        }
+    }
+    Ok(0)
+}

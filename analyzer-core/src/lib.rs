@@ -45,6 +45,7 @@
 
 pub mod design;
 pub mod export;
+pub mod metrics;
 pub mod network;
 pub mod response;
 pub mod solve;
