@@ -159,6 +159,19 @@ pub struct PlotInput<'a> {
 #[error("plot: {0}")]
 pub struct PlotError(pub String);
 
+/// "10.0 Hz" → "10 Hz", "-20.0" → "-20": axis labels without idle zeros.
+fn tidy_label(s: String) -> String {
+    let (num, unit) = match s.find(' ') {
+        Some(i) => (&s[..i], &s[i..]),
+        None => (s.as_str(), ""),
+    };
+    if num.contains('.') && !num.contains('e') {
+        let t = num.trim_end_matches('0').trim_end_matches('.');
+        return format!("{t}{unit}");
+    }
+    s
+}
+
 fn perr<E: std::fmt::Display>(e: E) -> PlotError {
     PlotError(e.to_string())
 }
@@ -256,16 +269,18 @@ pub fn render_svg(input: &PlotInput<'_>) -> Result<String, PlotError> {
             let mut mesh = chart.configure_mesh();
             mesh.disable_x_mesh()
                 .y_desc(label)
-                .light_line_style(MINOR)
+                .y_labels(7)
+                .max_light_lines(1)
+                .light_line_style(WHITE)
                 .bold_line_style(MINOR)
                 .axis_style(INK)
                 .label_style(("sans-serif", 13).into_font().color(&INK))
-                .y_label_formatter(&|v| format_eng(*v, 3, ""))
-                .x_label_formatter(&|f| format_eng(*f, 3, "Hz"));
+                .y_label_formatter(&|v| tidy_label(format_eng(*v, 3, "")));
             if last {
-                mesh.x_desc("frequency (Hz)");
+                mesh.x_desc("frequency (Hz)")
+                    .x_label_formatter(&|f| tidy_label(format_eng(*f, 3, "Hz")));
             } else {
-                mesh.x_labels(0);
+                mesh.x_label_formatter(&|_| String::new());
             }
             mesh.draw().map_err(perr)?;
             let pts = input
@@ -277,24 +292,22 @@ pub fn render_svg(input: &PlotInput<'_>) -> Result<String, PlotError> {
             chart
                 .draw_series(LineSeries::new(pts, TRACE.stroke_width(2)))
                 .map_err(perr)?;
-            for m in input.markers.iter().filter(|m| m.panel == p) {
-                if !(m.freq >= f0 && m.freq <= f1 && m.value.is_finite()) {
-                    continue;
-                }
-                chart
-                    .draw_series(std::iter::once(Circle::new(
-                        (m.freq, m.value),
-                        4,
-                        MARK.filled(),
-                    )))
-                    .map_err(perr)?;
-                chart
-                    .draw_series(std::iter::once(Text::new(
+            // Labels are staggered upwards so neighbouring markers stay readable.
+            let shown = input
+                .markers
+                .iter()
+                .filter(|m| m.panel == p && m.freq >= f0 && m.freq <= f1 && m.value.is_finite());
+            for (i, m) in shown.enumerate() {
+                let dy = -16 - 14 * (i as i32 % 3);
+                let mark = EmptyElement::at((m.freq, m.value))
+                    + Circle::new((0, 0), 4, MARK.filled())
+                    + PathElement::new(vec![(0, 0), (6, dy + 8)], MARK.stroke_width(1))
+                    + Text::new(
                         m.label.clone(),
-                        (m.freq, m.value),
+                        (7, dy),
                         ("sans-serif", 12).into_font().color(&MARK),
-                    )))
-                    .map_err(perr)?;
+                    );
+                chart.draw_series(std::iter::once(mark)).map_err(perr)?;
             }
         }
         root.present().map_err(perr)?;

@@ -396,6 +396,17 @@ impl<'a> Evaluator<'a> {
         }
     }
 
+    /// The solution vector under the design's own sources from the last [`Evaluator::at`]
+    /// call on this workspace (None if no response uses the design's sources).
+    pub fn design_solution<'w>(&self, ws: &'w Workspace<'a>) -> Option<&'w [Complex64]> {
+        let e = self
+            .analysis
+            .excitations
+            .iter()
+            .position(|e| *e == Excitation::Design)?;
+        ws.xs.get(e).map(Vec::as_slice)
+    }
+
     /// All responses at frequency `f` (Hz), with ω-derivatives when `derivatives` is set.
     /// Fails, naming the frequency, when the system is singular there or the solution fails
     /// its residual check. The slice is valid until the next call on this workspace.

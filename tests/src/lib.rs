@@ -1,1 +1,82 @@
-//! Reference suite: see tests/*.rs.
+//! Reference suite: checks of analyzer-core against closed forms, published prototype
+//! tables and fixtures written by a reference library (scipy.signal, see
+//! `tests/reference/make_fixtures.py`). This file holds the helpers the checks share.
+
+use analyzer_core::design;
+use analyzer_core::response::{Analysis, Point};
+use analyzer_core::sweep::{self, Grid, Sweep, SweepOptions};
+use num_complex::Complex64;
+
+/// Parses a design and sets up its analysis; panics with the error text on bad input.
+pub fn analysis(toml: &str) -> Analysis {
+    let d = design::parse(toml).unwrap_or_else(|e| panic!("design: {e}"));
+    Analysis::new(d.network, d.responses).unwrap_or_else(|e| panic!("analysis: {e}"))
+}
+
+/// All responses at one frequency, with derivatives.
+pub fn at(a: &Analysis, f: f64) -> Vec<Point> {
+    let ev = a.evaluator().expect("evaluator");
+    let mut ws = ev.workspace();
+    ev.at(&mut ws, f, true).expect("solve").to_vec()
+}
+
+/// Value of response `i` at `f`.
+pub fn value(a: &Analysis, i: usize, f: f64) -> Complex64 {
+    at(a, f)[i].value
+}
+
+/// A full sweep.
+pub fn run(a: &Analysis, grid: &Grid, derivatives: bool) -> Sweep {
+    let ev = a.evaluator().expect("evaluator");
+    sweep::run(
+        &ev,
+        grid,
+        &SweepOptions {
+            derivatives,
+            sequential: false,
+        },
+    )
+    .expect("sweep")
+}
+
+/// Relative difference |a − b| / |b|.
+pub fn rel(a: f64, b: f64) -> f64 {
+    (a - b).abs() / b.abs()
+}
+
+/// Reads a fixture CSV (comment lines start with '#', then a header) into rows of numbers.
+pub fn fixture(name: &str) -> Vec<Vec<f64>> {
+    let path = format!("{}/fixtures/{name}", env!("CARGO_MANIFEST_DIR"));
+    let text = std::fs::read_to_string(&path).unwrap_or_else(|e| panic!("{path}: {e}"));
+    text.lines()
+        .filter(|l| !l.starts_with('#'))
+        .skip(1)
+        .map(|l| l.split(',').map(|x| x.parse().expect("number")).collect())
+        .collect()
+}
+
+/// A doubly terminated LC ladder from low-pass prototype values `g` (series inductor first),
+/// source and load `r0`, cut-off `fc`, as a design file.
+pub fn ladder_design(title: &str, g: &[f64], r0: f64, rload: f64, fc: f64) -> String {
+    let wc = 2.0 * std::f64::consts::PI * fc;
+    let mut s = format!(
+        "title = \"{title}\"\n[parts]\nV1 = {{ voltage = \"1\", between = [\"src\", \"gnd\"] }}\nRs = {{ resistor = {r0:e}, between = [\"src\", \"n0\"] }}\n"
+    );
+    let mut node = 0;
+    for (k, gk) in g.iter().enumerate() {
+        if k % 2 == 0 {
+            let l = gk * r0 / wc;
+            s += &format!(
+                "L{k} = {{ inductor = {l:e}, between = [\"n{node}\", \"n{}\"] }}\n",
+                node + 1
+            );
+            node += 1;
+        } else {
+            let c = gk / (r0 * wc);
+            s += &format!("C{k} = {{ capacitor = {c:e}, between = [\"n{node}\", \"gnd\"] }}\n");
+        }
+    }
+    s += &format!("RL = {{ resistor = {rload:e}, between = [\"n{node}\", \"gnd\"] }}\n");
+    s += &format!("[responses]\ngain = {{ ratio = [\"n{node}\", \"src\"] }}\n");
+    s
+}
