@@ -449,7 +449,18 @@ pub fn figures(
         }
     };
     let level = reference_db + opts.level_db;
-    let crossings = crossings_at(&mut probe, freqs, &db, &usable, level)?;
+    // Refined extrema join the grid as bracketing points, so a narrow peak between two grid
+    // points still yields its crossings.
+    let grid_pts: Vec<(f64, f64)> = usable.iter().map(|&k| (freqs[k], db[k])).collect();
+    let extra: Vec<(f64, f64)> = peaks
+        .iter()
+        .chain(&notches)
+        .map(|e| (e.freq_hz, e.magnitude_db))
+        .chain(reference_hz.map(|f| (f, reference_db)))
+        .filter(|p| p.1.is_finite())
+        .collect();
+    let pts = merged(&grid_pts, &extra);
+    let crossings = crossings_at(&mut probe, &pts, level)?;
     let rf = reference_hz.unwrap_or_else(|| usable.first().map_or(1.0, |&k| freqs[k]));
     let lower = crossings
         .iter()
@@ -467,13 +478,7 @@ pub fn figures(
 
     // Q of each peak from its own −3 dB points.
     for p in peaks.iter_mut() {
-        let cs = crossings_at(
-            &mut probe,
-            freqs,
-            &db,
-            &usable,
-            p.magnitude_db + HALF_POWER_DB,
-        )?;
+        let cs = crossings_at(&mut probe, &pts, p.magnitude_db + HALF_POWER_DB)?;
         let l = cs.iter().rev().find(|c| c.freq_hz < p.freq_hz);
         let u = cs.iter().find(|c| c.freq_hz > p.freq_hz);
         if let (Some(l), Some(u)) = (l, u) {
@@ -487,7 +492,7 @@ pub fn figures(
     // written as a ratio of a voltage and a current.
     let resonances = match spec.kind.unit() {
         ResponseUnit::Ohms | ResponseUnit::Siemens => {
-            resonances(&mut probe, freqs, values, &db, &usable, spec.kind.unit())?
+            resonances(&mut probe, freqs, values, &pts, &usable, spec.kind.unit())?
         }
         ResponseUnit::Ratio => Vec::new(),
     };
@@ -496,7 +501,7 @@ pub fn figures(
         None => None,
     };
     let margins = if spec.loop_gain {
-        Some(margins(&mut probe, freqs, values, &db, &usable)?)
+        Some(margins(&mut probe, freqs, values, &pts, &usable)?)
     } else {
         None
     };
@@ -520,20 +525,19 @@ pub fn figures(
     })
 }
 
+/// Crossings of `level` along `pts` (frequency, dB), ascending, each refined on the network.
 fn crossings_at(
     probe: &mut Probe<'_, '_>,
-    freqs: &[f64],
-    db: &[f64],
-    usable: &[usize],
+    pts: &[(f64, f64)],
     level: f64,
 ) -> Result<Vec<Crossing>, AnalysisError> {
     let mut out = Vec::new();
-    for w in usable.windows(2) {
-        let (i, j) = (w[0], w[1]);
-        let (gi, gj) = (db[i] - level, db[j] - level);
-        if gi == 0.0 && out.last().map(|c: &Crossing| c.freq_hz) != Some(freqs[i]) {
+    for w in pts.windows(2) {
+        let ((fi, di), (fj, dj)) = (w[0], w[1]);
+        let (gi, gj) = (di - level, dj - level);
+        if gi == 0.0 && out.last().map(|c: &Crossing| c.freq_hz) != Some(fi) {
             out.push(Crossing {
-                freq_hz: freqs[i],
+                freq_hz: fi,
                 rising: gj > 0.0,
             });
             continue;
@@ -541,7 +545,7 @@ fn crossings_at(
         if (gi < 0.0) == (gj < 0.0) || gj == 0.0 {
             continue;
         }
-        let f = probe.root_in(freqs[i], freqs[j], gi, gj, |p, f| Ok(p.db(f)? - level))?;
+        let f = probe.root_in(fi, fj, gi, gj, |p, f| Ok(p.db(f)? - level))?;
         out.push(Crossing {
             freq_hz: f,
             rising: gj > gi,
@@ -553,11 +557,19 @@ fn crossings_at(
     Ok(out)
 }
 
+/// The grid's (frequency, dB) points with refined extra points merged in, ascending.
+fn merged(grid: &[(f64, f64)], extra: &[(f64, f64)]) -> Vec<(f64, f64)> {
+    let mut v: Vec<(f64, f64)> = grid.iter().chain(extra).copied().collect();
+    v.sort_by(|a, b| a.0.total_cmp(&b.0));
+    v.dedup_by(|a, b| a.0 == b.0);
+    v
+}
+
 fn resonances(
     probe: &mut Probe<'_, '_>,
     freqs: &[f64],
     values: &[num_complex::Complex64],
-    db: &[f64],
+    pts: &[(f64, f64)],
     usable: &[usize],
     unit: ResponseUnit,
 ) -> Result<Vec<Resonance>, AnalysisError> {
@@ -590,7 +602,7 @@ fn resonances(
         } else {
             here - HALF_POWER_DB
         };
-        let cs = crossings_at(probe, freqs, db, usable, level)?;
+        let cs = crossings_at(probe, &merged(pts, &[(f0, here)]), level)?;
         let l = cs.iter().rev().find(|c| c.freq_hz < f0);
         let u = cs.iter().find(|c| c.freq_hz > f0);
         let q_bandwidth = match (l, u) {
@@ -615,7 +627,7 @@ fn margins(
     probe: &mut Probe<'_, '_>,
     freqs: &[f64],
     values: &[num_complex::Complex64],
-    db: &[f64],
+    pts: &[(f64, f64)],
     usable: &[usize],
 ) -> Result<Margins, AnalysisError> {
     let unwrapped = phases_deg(values, true);
@@ -631,7 +643,7 @@ fn margins(
         phase_crossover_hz: None,
         gain_margin_db: None,
     };
-    let gc = crossings_at(probe, freqs, db, usable, 0.0)?;
+    let gc = crossings_at(probe, pts, 0.0)?;
     if let Some(c) = gc.first() {
         let k = usable
             .iter()
