@@ -46,7 +46,7 @@ struct Cli {
 #[derive(Subcommand, Debug)]
 enum Command {
     /// Solve a design over its frequency sweep; write CSV and SVG per response and print figures.
-    Sweep(SweepArgs),
+    Sweep(Box<SweepArgs>),
     /// Read a design and check its topology without sweeping; print what it contains.
     Check {
         /// The design file (TOML).

@@ -304,12 +304,39 @@ pub fn parse(text: &str) -> Result<Design, DesignError> {
 }
 
 fn tidy_toml_message(message: &str) -> String {
-    let m = message.trim().to_string();
+    // One line per error: the parser's own line breaks become "; ".
+    let m = message
+        .lines()
+        .map(str::trim)
+        .filter(|l| !l.is_empty())
+        .collect::<Vec<_>>()
+        .join("; ");
     if let Some(rest) = m.strip_prefix("unknown field ") {
+        let key = rest.split(',').next().unwrap_or(rest);
+        if rest.contains("`resistor`") {
+            return format!(
+                "unknown part kind or key {key}; a part takes one kind ({}) and the keys of that kind ({})",
+                KINDS.join(", "),
+                PART_KEYS.join(", ")
+            );
+        }
         return format!("unknown key {rest}");
     }
     m
 }
+
+const PART_KEYS: &[&str] = &[
+    "between",
+    "control",
+    "k",
+    "tolerance",
+    "phase",
+    "noninverting",
+    "inverting",
+    "output",
+    "dc_gain",
+    "gbw",
+];
 
 fn network_error_part(e: &NetworkError) -> Option<&str> {
     match e {

@@ -421,7 +421,8 @@ pub fn solve_checked(
         }
         err = backward_error(sys, omega, rhs, scratch);
     }
-    if !(err <= RESIDUAL_LIMIT)
+    if err.is_nan()
+        || err > RESIDUAL_LIMIT
         || rhs
             .iter()
             .take(n)

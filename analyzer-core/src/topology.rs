@@ -172,15 +172,13 @@ fn check_floating(net: &Network, at_dc: bool) -> Result<(), TopologyError> {
         match p.kind {
             PartKind::CurrentSource { from, to, .. }
             | PartKind::Vccs { from, to, .. }
-            | PartKind::Cccs { from, to, .. } => {
-                if touches(&mut dsu, from, to) {
-                    current_sources.push(p.name.clone());
-                }
+            | PartKind::Cccs { from, to, .. }
+                if touches(&mut dsu, from, to) =>
+            {
+                current_sources.push(p.name.clone());
             }
-            PartKind::Capacitor { a, b, .. } if at_dc => {
-                if touches(&mut dsu, a, b) {
-                    capacitors.push(p.name.clone());
-                }
+            PartKind::Capacitor { a, b, .. } if at_dc && touches(&mut dsu, a, b) => {
+                capacitors.push(p.name.clone());
             }
             _ => {}
         }

@@ -483,7 +483,7 @@ mod tests {
 
     #[test]
     fn writes_engineering_notation() {
-        assert_eq!(format_eng(1591.549_430_9, 5, "Hz"), "1.5915 kHz");
+        assert_eq!(format_eng(1_591.549_430_9, 5, "Hz"), "1.5915 kHz");
         assert_eq!(format_eng(-3.0103, 3, "dB"), "-3.01 dB");
         assert_eq!(format_eng(999.999, 3, "Hz"), "1.00 kHz");
         assert_eq!(format_eng(2.2e-9, 3, "F"), "2.20 nF");

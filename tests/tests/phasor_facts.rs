@@ -2,7 +2,6 @@
 //! element impedances, their phase, and Kirchhoff's laws on solved networks.
 
 use analyzer_core::network::PartKind;
-use analyzer_core::stamp::System;
 use num_complex::Complex64;
 use reference_suite::{analysis, at};
 use std::f64::consts::PI;

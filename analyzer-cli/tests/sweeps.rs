@@ -1,0 +1,207 @@
+//! The real binary on every example design in sweeps/.
+
+use analyzer_core::design;
+use assert_cmd::Command;
+use std::path::{Path, PathBuf};
+
+fn root() -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join("..")
+}
+
+fn designs() -> Vec<PathBuf> {
+    let mut v: Vec<PathBuf> = std::fs::read_dir(root().join("sweeps"))
+        .unwrap()
+        .map(|e| e.unwrap().path())
+        .filter(|p| p.extension().is_some_and(|e| e == "toml"))
+        .collect();
+    v.sort();
+    v
+}
+
+#[test]
+fn every_example_design_sweeps_to_csv_and_svg() {
+    let designs = designs();
+    assert!(designs.len() >= 4);
+    for path in designs {
+        let d = design::parse(&std::fs::read_to_string(&path).unwrap()).unwrap();
+        let points = d.sweep.grid().unwrap().len();
+        let tmp = tempfile::tempdir().unwrap();
+        let out = Command::cargo_bin("analyzer")
+            .unwrap()
+            .args(["sweep", path.to_str().unwrap(), "--delay", "-o"])
+            .arg(tmp.path())
+            .assert()
+            .success();
+        let stdout = String::from_utf8_lossy(&out.get_output().stdout).to_string();
+        assert!(stdout.contains(&d.network.title), "{stdout}");
+        for r in &d.responses {
+            let csv_path = tmp.path().join(format!("{}.csv", r.name));
+            let mut reader = csv::Reader::from_path(&csv_path).unwrap();
+            let header: Vec<String> = reader.headers().unwrap().iter().map(String::from).collect();
+            let suffix = r.kind.unit().column_suffix();
+            assert_eq!(
+                header,
+                vec![
+                    "frequency_hz".to_string(),
+                    "magnitude_db".into(),
+                    "phase_deg".into(),
+                    format!("real{suffix}"),
+                    format!("imag{suffix}"),
+                    "group_delay_s".into()
+                ]
+            );
+            let rows: Vec<csv::StringRecord> = reader.records().map(Result::unwrap).collect();
+            assert_eq!(rows.len(), points, "{}", csv_path.display());
+            for row in &rows {
+                for field in row.iter() {
+                    let v: f64 = field.parse().unwrap();
+                    assert!(v.is_finite());
+                }
+            }
+            let svg = std::fs::read_to_string(tmp.path().join(format!("{}.svg", r.name))).unwrap();
+            let doc = roxmltree::Document::parse(&svg).expect("SVG is well-formed XML");
+            let texts: Vec<&str> = doc
+                .descendants()
+                .filter_map(|n| n.text())
+                .map(str::trim)
+                .collect();
+            assert!(
+                texts.iter().any(|t| t.starts_with("magnitude (dB")),
+                "{}",
+                r.name
+            );
+            assert!(texts.contains(&"phase (°)"));
+            assert!(texts.contains(&"group delay (s)"));
+            assert!(texts.contains(&"frequency (Hz)"));
+            assert!(texts.iter().any(|t| t.contains(&r.name)));
+        }
+    }
+}
+
+#[test]
+fn dash_writes_one_csv_to_stdout() {
+    let path = root().join("sweeps/bookshelf-crossover.toml");
+    let out = Command::cargo_bin("analyzer")
+        .unwrap()
+        .args([
+            "sweep",
+            path.to_str().unwrap(),
+            "-o",
+            "-",
+            "--points",
+            "11",
+            "--from",
+            "100",
+            "--to",
+            "1.1k",
+        ])
+        .assert()
+        .success();
+    let text = String::from_utf8_lossy(&out.get_output().stdout).to_string();
+    let mut lines = text.lines();
+    assert_eq!(
+        lines.next().unwrap(),
+        "frequency_hz,woofer.magnitude_db,woofer.phase_deg,woofer.real,woofer.imag,\
+tweeter.magnitude_db,tweeter.phase_deg,tweeter.real,tweeter.imag,\
+load.magnitude_db,load.phase_deg,load.real_ohm,load.imag_ohm"
+    );
+    let rows: Vec<&str> = lines.collect();
+    assert_eq!(rows.len(), 11);
+    assert!(rows[0].starts_with("100.0,"));
+    assert!(rows[10].starts_with("1100.0,"));
+    // The figures go to stderr so the CSV stays clean.
+    assert!(String::from_utf8_lossy(&out.get_output().stderr).contains("woofer"));
+}
+
+#[test]
+fn json_figures_for_scripts() {
+    let path = root().join("sweeps/vibration-bandpass.toml");
+    let out = Command::cargo_bin("analyzer")
+        .unwrap()
+        .args([
+            "sweep",
+            path.to_str().unwrap(),
+            "-o",
+            "-",
+            "--json",
+            "-",
+            "--only",
+            "gain",
+        ])
+        .assert()
+        .success();
+    let text = String::from_utf8_lossy(&out.get_output().stdout).to_string();
+    let start = text.find('{').unwrap();
+    let v: serde_json::Value = serde_json::from_str(&text[start..]).unwrap();
+    let g = &v["responses"][0];
+    assert_eq!(g["response"], "gain");
+    let f0 = g["peaks"][0]["freq_hz"].as_f64().unwrap();
+    assert!(f0 > 100.0 && f0 < 140.0);
+    assert!(g["lower_cutoff_hz"].as_f64().unwrap() < f0);
+}
+
+#[test]
+fn a_failed_run_leaves_the_previous_files_intact() {
+    let tmp = tempfile::tempdir().unwrap();
+    let good = root().join("sweeps/soil-probe-antialias.toml");
+    Command::cargo_bin("analyzer")
+        .unwrap()
+        .args(["sweep", good.to_str().unwrap(), "-o"])
+        .arg(tmp.path())
+        .assert()
+        .success();
+    let before = std::fs::read(tmp.path().join("gain.csv")).unwrap();
+    // Same responses, but a network that fails at solve time (a floating node).
+    let text = std::fs::read_to_string(&good).unwrap().replace(
+        "[responses]",
+        "Rx = { resistor = \"1k\", between = [\"x\", \"y\"] }\n[responses]",
+    );
+    let bad = tmp.path().join("bad.toml");
+    std::fs::write(&bad, text).unwrap();
+    Command::cargo_bin("analyzer")
+        .unwrap()
+        .args(["sweep", bad.to_str().unwrap(), "-o"])
+        .arg(tmp.path())
+        .assert()
+        .code(2);
+    assert_eq!(std::fs::read(tmp.path().join("gain.csv")).unwrap(), before);
+    let leftovers: Vec<_> = std::fs::read_dir(tmp.path())
+        .unwrap()
+        .filter_map(|e| e.ok())
+        .filter(|e| e.file_name().to_string_lossy().ends_with(".part"))
+        .collect();
+    assert!(leftovers.is_empty());
+}
+
+#[test]
+fn help_describes_every_subcommand() {
+    let out = Command::cargo_bin("analyzer")
+        .unwrap()
+        .arg("--help")
+        .assert()
+        .success();
+    let text = String::from_utf8_lossy(&out.get_output().stdout).to_string();
+    for w in ["sweep", "check", "Exit codes"] {
+        assert!(text.contains(w), "{w}");
+    }
+    let out = Command::cargo_bin("analyzer")
+        .unwrap()
+        .args(["sweep", "--help"])
+        .assert()
+        .success();
+    let text = String::from_utf8_lossy(&out.get_output().stdout).to_string();
+    for w in [
+        "--output",
+        "--from",
+        "--to",
+        "--per-decade",
+        "--points",
+        "--only",
+        "--delay",
+        "--json",
+        "--level",
+        "--reference",
+    ] {
+        assert!(text.contains(w), "{w}");
+    }
+}
