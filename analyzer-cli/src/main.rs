@@ -271,6 +271,7 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
         SolverArg::Sparse => SolverKind::Sparse,
     };
     let caution = d.caution;
+    let limits = d.limits.clone();
     let analysis = Analysis::new(d.network, d.responses)
         .map_err(|e| Failure::input(format!("{shown}: {e}")))?
         .with_solver(solver);
@@ -290,6 +291,32 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
         .collect::<Result<Vec<_>, _>>()
         .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
 
+    // Limits on responses left out by --only are not checked.
+    let mut checks = Vec::new();
+    for limit in &limits {
+        if let Some(i) = analysis
+            .responses()
+            .iter()
+            .position(|r| r.name == limit.response)
+        {
+            let r = metrics::check_limit(&ev, &result, i, &figures[i], limit)
+                .map_err(|e| Failure::input(format!("{shown}: limit {}: {e}", limit.name)))?;
+            checks.push(r);
+        }
+    }
+    // Limits on responses left out by --only are not checked.
+    let mut checks = Vec::new();
+    for limit in &limits {
+        if let Some(i) = analysis
+            .responses()
+            .iter()
+            .position(|r| r.name == limit.response)
+        {
+            let r = metrics::check_limit(&ev, &result, i, &figures[i], limit)
+                .map_err(|e| Failure::input(format!("{shown}: limit {}: {e}", limit.name)))?;
+            checks.push(r);
+        }
+    }
     let to_stdout = args.output.as_deref() == Some("-");
     let out_dir = match &args.output {
         Some(o) if o != "-" => PathBuf::from(o),
@@ -315,7 +342,7 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
         written = plan.write_dir(&out_dir)?;
     }
     if let Some(j) = &args.json {
-        let text = report::json(&analysis, &grid, &figures, caution);
+        let text = report::json(&analysis, &grid, &figures, &checks, caution);
         if j == "-" {
             println!("{text}");
         } else {
@@ -328,6 +355,7 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
             &analysis,
             &grid,
             &figures,
+            &checks,
             caution,
             solve_time,
             ev.solver_kind(),
@@ -343,6 +371,24 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
         } else {
             print!("{text}");
         }
+    }
+    if checks.iter().any(|c| !c.pass) {
+        let failed: Vec<&str> = checks
+            .iter()
+            .filter(|c| !c.pass)
+            .map(|c| c.limit.name.as_str())
+            .collect();
+        eprintln!("check failed: {}", failed.join(", "));
+        return Ok(EXIT_CHECK_FAILED);
+    }
+    let failed: Vec<&str> = checks
+        .iter()
+        .filter(|c| !c.pass)
+        .map(|c| c.limit.name.as_str())
+        .collect();
+    if !failed.is_empty() {
+        eprintln!("check failed: {}", failed.join(", "));
+        return Ok(EXIT_CHECK_FAILED);
     }
     Ok(0)
 }

@@ -1,6 +1,6 @@
 //! Human table and JSON of the figures.
 
-use analyzer_core::metrics::Figures;
+use analyzer_core::metrics::{Figures, LimitResult};
 use analyzer_core::response::Analysis;
 use analyzer_core::solve::SolverKind;
 use analyzer_core::sweep::Grid;
@@ -33,6 +33,7 @@ pub fn table(
     a: &Analysis,
     grid: &Grid,
     figures: &[Figures],
+    checks: &[LimitResult],
     caution: bool,
     took: Duration,
     solver: SolverKind,
@@ -144,6 +145,30 @@ pub fn table(
             }
         }
     }
+    if !checks.is_empty() {
+        let _ = writeln!(s, "\nlimits");
+        for c in checks {
+            let l = &c.limit;
+            let bounds = match (l.min_db, l.max_db) {
+                (Some(a), Some(b)) => format!("{a} … {b} dB"),
+                (Some(a), None) => format!("≥ {a} dB"),
+                (None, Some(b)) => format!("≤ {b} dB"),
+                (None, None) => String::new(),
+            };
+            let _ = writeln!(
+                s,
+                "  {:<18}{} {} over {} … {}: {}, worst margin {} at {}",
+                l.name,
+                l.response,
+                bounds,
+                hz(l.from),
+                hz(l.to),
+                if c.pass { "pass" } else { "FAIL" },
+                db(c.worst_margin_db),
+                hz(c.worst_at_hz)
+            );
+        }
+    }
     if caution {
         let _ = writeln!(s, "\n{CAUTION}");
     }
@@ -151,7 +176,13 @@ pub fn table(
 }
 
 /// The figures as JSON.
-pub fn json(a: &Analysis, grid: &Grid, figures: &[Figures], caution: bool) -> String {
+pub fn json(
+    a: &Analysis,
+    grid: &Grid,
+    figures: &[Figures],
+    checks: &[LimitResult],
+    caution: bool,
+) -> String {
     let (from, to) = grid.bounds();
     let v = serde_json::json!({
         "title": a.network().title,
@@ -159,6 +190,7 @@ pub fn json(a: &Analysis, grid: &Grid, figures: &[Figures], caution: bool) -> St
         "unknowns": a.system().n,
         "caution": if caution { Some(CAUTION) } else { None },
         "responses": figures,
+        "limits": checks,
     });
     serde_json::to_string_pretty(&v).unwrap_or_else(|e| format!("{{\"error\": \"{e}\"}}"))
 }

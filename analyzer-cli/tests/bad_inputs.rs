@@ -23,7 +23,7 @@ const DESIGNS: &[(&str, &str)] = &[
     ("toml_missing_equals", ":8:4: expected `.`, `=`"),
     ("toml_duplicate_key", ":9:1: duplicate key `R1` in table `parts`"),
     ("toml_bad_table", ":12:7: invalid table header; expected `.`, `]`"),
-    ("schema_unknown_top_key", ":1:1: unknown key `colour`, expected one of `title`, `caution`, `sweep`, `parts`, `responses`"),
+    ("schema_unknown_top_key", ":1:1: unknown key `colour`, expected one of `title`, `caution`, `sweep`, `parts`, `responses`, `limits`"),
     ("schema_unknown_part_key", ":8:50: unknown part kind or key `colour`; a part takes one kind (resistor, capacitor, inductor, voltage, current, vcvs, vccs, ccvs, cccs, opamp, coupling) and the keys of that kind (between, control, k, tolerance, phase, noninverting, inverting, output, dc_gain, gbw)"),
     ("schema_unknown_kind", ":8:8: unknown part kind or key `diode`; a part takes one kind (resistor, capacitor, inductor, voltage, current, vcvs, vccs, ccvs, cccs, opamp, coupling) and the keys of that kind (between, control, k, tolerance, phase, noninverting, inverting, output, dc_gain, gbw)"),
     ("schema_no_kind", ":8:6: part R1 has no kind; give one of resistor, capacitor, inductor, voltage, current, vcvs, vccs, ccvs, cccs, opamp, coupling"),
@@ -58,6 +58,8 @@ const DESIGNS: &[(&str, &str)] = &[
     ("topology_opamp_grounded_output", ":9:6: U1: the output is on gnd; an op-amp output must drive a node of its own"),
     ("numeric_zero_denominator", ": response \"gain\": the denominator is zero at 10.000 Hz, so the ratio has no value there"),
     ("numeric_ratio_without_source", ":11:8: response gain is a ratio, which needs an independent source in [parts]; add one"),
+    ("schema_limit_unknown_response", ":13:21: limit pass checks response \"gian\", which the design does not define (it has: gain)"),
+    ("schema_limit_no_bound", ":13:8: limit pass needs min_db, max_db or both"),
 ];
 
 fn analyzer() -> Command {

@@ -205,3 +205,27 @@ fn help_describes_every_subcommand() {
         assert!(text.contains(w), "{w}");
     }
 }
+
+#[test]
+fn a_failed_limit_exits_one_and_still_writes_the_outputs() {
+    let tmp = tempfile::tempdir().unwrap();
+    let text = std::fs::read_to_string(root().join("sweeps/soil-probe-antialias.toml"))
+        .unwrap()
+        .replace("max_db = -25", "max_db = -40");
+    let design = tmp.path().join("strict.toml");
+    std::fs::write(&design, text).unwrap();
+    let out = Command::cargo_bin("analyzer")
+        .unwrap()
+        .args(["sweep", design.to_str().unwrap(), "-o"])
+        .arg(tmp.path().join("o"))
+        .assert()
+        .code(1);
+    let o = out.get_output();
+    assert_eq!(
+        String::from_utf8_lossy(&o.stderr),
+        "check failed: alias_band\n"
+    );
+    assert!(String::from_utf8_lossy(&o.stdout)
+        .contains("alias_band        gain ≤ -40 dB over 50.000 kHz … 1.0000 MHz: FAIL"));
+    assert!(tmp.path().join("o/gain.csv").exists());
+}

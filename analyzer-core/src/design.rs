@@ -86,6 +86,8 @@ pub struct Design {
     pub sweep: SweepSpec,
     /// The responses, in file order.
     pub responses: Vec<ResponseSpec>,
+    /// Magnitude limits to check, in file order.
+    pub limits: Vec<crate::metrics::Limit>,
     /// Whether the design mentions a mains, high-voltage or medical use in its title or
     /// `caution` key, so reports carry the safety caution.
     pub caution: bool,
@@ -115,6 +117,17 @@ struct FileEntry {
     sweep: Option<Spanned<SweepEntry>>,
     parts: Option<Spanned<BTreeMap<String, Spanned<PartEntry>>>>,
     responses: Option<Spanned<BTreeMap<String, Spanned<ResponseEntry>>>>,
+    limits: Option<Spanned<BTreeMap<String, Spanned<LimitEntry>>>>,
+}
+
+#[derive(Deserialize, Debug)]
+#[serde(deny_unknown_fields)]
+struct LimitEntry {
+    response: Spanned<String>,
+    from: Spanned<Scalar>,
+    to: Spanned<Scalar>,
+    min_db: Option<Spanned<Scalar>>,
+    max_db: Option<Spanned<Scalar>>,
 }
 
 #[derive(Deserialize, Debug)]
@@ -281,6 +294,14 @@ pub fn parse(text: &str) -> Result<Design, DesignError> {
             "the design has no [responses]; name at least one, e.g. gain = { ratio = [\"out\", \"in\"] }",
         ));
     }
+    let mut limits = Vec::new();
+    if let Some(ls) = file.limits {
+        let mut list: Vec<(String, Spanned<LimitEntry>)> = ls.into_inner().into_iter().collect();
+        list.sort_by_key(|(_, e)| e.span().start);
+        for (name, entry) in &list {
+            limits.push(read_limit(&pos, &responses, name, entry)?);
+        }
+    }
     let lower = title.to_lowercase();
     let caution = file.caution.as_ref().is_some_and(|c| *c.get_ref())
         || [
@@ -299,6 +320,7 @@ pub fn parse(text: &str) -> Result<Design, DesignError> {
         network,
         sweep,
         responses,
+        limits,
         caution,
     })
 }
@@ -729,6 +751,62 @@ fn add_part(
         }
     }
     Ok(())
+}
+
+fn read_limit(
+    pos: &Positions<'_>,
+    responses: &[ResponseSpec],
+    name: &str,
+    entry: &Spanned<LimitEntry>,
+) -> Result<crate::metrics::Limit, DesignError> {
+    let e = entry.get_ref();
+    let r = e.response.get_ref();
+    if !responses.iter().any(|x| &x.name == r) {
+        let known: Vec<&str> = responses.iter().map(|x| x.name.as_str()).collect();
+        return Err(pos.err(
+            e.response.span(),
+            format!(
+                "limit {name} checks response {r:?}, which the design does not define (it has: {})",
+                known.join(", ")
+            ),
+        ));
+    }
+    let what = format!("limit {name}");
+    let from = scalar_value(pos, &e.from, Quantity::Frequency, &what)?;
+    let to = scalar_value(pos, &e.to, Quantity::Frequency, &what)?;
+    if !(from >= 0.0 && to >= from) {
+        return Err(pos.err(e.to.span(), format!("limit {name}: the range must run upwards from 0 Hz or more, got {from} Hz to {to} Hz")));
+    }
+    let db = |v: &Option<Spanned<Scalar>>| -> Result<Option<f64>, DesignError> {
+        match v {
+            Some(s) => Ok(Some(scalar_value(pos, s, Quantity::Ratio, &what)?)),
+            None => Ok(None),
+        }
+    };
+    let (min_db, max_db) = (db(&e.min_db)?, db(&e.max_db)?);
+    match (min_db, max_db) {
+        (None, None) => {
+            return Err(pos.err(
+                entry.span(),
+                format!("limit {name} needs min_db, max_db or both"),
+            ))
+        }
+        (Some(a), Some(b)) if a > b => {
+            return Err(pos.err(
+                entry.span(),
+                format!("limit {name}: min_db ({a}) is above max_db ({b})"),
+            ))
+        }
+        _ => {}
+    }
+    Ok(crate::metrics::Limit {
+        name: name.to_string(),
+        response: r.clone(),
+        from,
+        to,
+        min_db,
+        max_db,
+    })
 }
 
 fn read_response(

@@ -45,6 +45,8 @@
 
 pub mod design;
 pub mod export;
+#[doc(hidden)]
+pub mod fuzz_targets;
 pub mod metrics;
 pub mod network;
 pub mod response;

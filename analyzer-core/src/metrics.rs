@@ -148,6 +148,83 @@ pub struct Figures {
     pub margins: Option<Margins>,
 }
 
+/// A magnitude limit: the response must stay within `[min_db, max_db]` over `[from, to]`.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct Limit {
+    /// Name of the limit.
+    pub name: String,
+    /// Name of the response it checks.
+    pub response: String,
+    /// Lower end of the range (Hz).
+    pub from: Hertz,
+    /// Upper end of the range (Hz).
+    pub to: Hertz,
+    /// Lowest allowed magnitude (dB).
+    pub min_db: Option<Decibels>,
+    /// Highest allowed magnitude (dB).
+    pub max_db: Option<Decibels>,
+}
+
+/// The outcome of one limit.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct LimitResult {
+    /// The limit checked.
+    pub limit: Limit,
+    /// Whether the response stays inside everywhere checked.
+    pub pass: bool,
+    /// The smallest distance to a bound (dB); negative where the bound is crossed.
+    pub worst_margin_db: Decibels,
+    /// Where that happens (Hz).
+    pub worst_at_hz: Hertz,
+}
+
+/// Checks a limit at every grid point in its range, at both ends of the range and at every
+/// refined peak and notch inside it (so a narrow peak between grid points is not missed).
+pub fn check_limit(
+    ev: &Evaluator<'_>,
+    sweep: &Sweep,
+    index: usize,
+    figures: &Figures,
+    limit: &Limit,
+) -> Result<LimitResult, AnalysisError> {
+    let mut probe = Probe::new(ev, index);
+    let inside = |f: f64| f >= limit.from && f <= limit.to;
+    let mut freqs: Vec<f64> = sweep.freqs.iter().copied().filter(|f| inside(*f)).collect();
+    freqs.extend(
+        figures
+            .peaks
+            .iter()
+            .chain(&figures.notches)
+            .map(|e| e.freq_hz)
+            .filter(|f| inside(*f)),
+    );
+    freqs.push(limit.from);
+    freqs.push(limit.to);
+    let mut worst = (f64::INFINITY, limit.from);
+    for f in freqs {
+        let db = probe.db(f)?;
+        for m in [
+            limit.max_db.map(|hi| hi - db),
+            limit.min_db.map(|lo| db - lo),
+        ]
+        .into_iter()
+        .flatten()
+        {
+            // A NaN margin (an exact zero of |H| against a min_db) is a failure.
+            let m = if m.is_nan() { f64::NEG_INFINITY } else { m };
+            if m < worst.0 {
+                worst = (m, f);
+            }
+        }
+    }
+    Ok(LimitResult {
+        limit: limit.clone(),
+        pass: worst.0 >= 0.0,
+        worst_margin_db: worst.0,
+        worst_at_hz: worst.1,
+    })
+}
+
 /// Brent's bracketing root-finder on `[a, b]` with `f(a)`, `f(b)` of opposite sign (or one
 /// zero). Stops when the bracket is below `tol` (absolute) or after 200 steps.
 pub fn brent_root<E>(
