@@ -167,6 +167,20 @@ fn safe_file_name(name: &str) -> String {
         .collect()
 }
 
+/// Temporary files are created private (0600); give the output the mode the file it replaces
+/// had, or the usual 0644.
+#[cfg(unix)]
+fn keep_or_default_mode(file: &std::fs::File, target: &Path) -> std::io::Result<()> {
+    use std::os::unix::fs::PermissionsExt;
+    let mode = std::fs::metadata(target).map_or(0o644, |m| m.permissions().mode() & 0o7777);
+    file.set_permissions(std::fs::Permissions::from_mode(mode))
+}
+
+#[cfg(not(unix))]
+fn keep_or_default_mode(_file: &std::fs::File, _target: &Path) -> std::io::Result<()> {
+    Ok(())
+}
+
 /// Writes every file to a temporary beside its target, then renames them all into place.
 pub fn write_files(files: &[(PathBuf, Vec<u8>)]) -> Result<(), Failure> {
     let mut staged = Vec::with_capacity(files.len());
@@ -183,6 +197,7 @@ pub fn write_files(files: &[(PathBuf, Vec<u8>)]) -> Result<(), Failure> {
             .tempfile_in(&dir)
             .map_err(|e| Failure::output(format!("{}: {e}", dir.display())))?;
         tmp.write_all(bytes)
+            .and_then(|_| keep_or_default_mode(tmp.as_file(), path))
             .and_then(|_| tmp.as_file().sync_all())
             .map_err(|e| Failure::output(format!("{}: {e}", path.display())))?;
         staged.push((tmp, path));

@@ -159,6 +159,56 @@ pub struct PlotInput<'a> {
 #[error("plot: {0}")]
 pub struct PlotError(pub String);
 
+/// Points of a trace to draw: all of them when there are few; otherwise, per one of
+/// `TRACE_BUCKETS` equal steps of log-frequency, the first, lowest and highest point, so the
+/// drawn curve keeps every excursion a pixel could show while the SVG stays small.
+fn decimate(freqs: &[f64], ys: &[f64], f0: f64, f1: f64) -> Vec<(f64, f64)> {
+    let finite = freqs
+        .iter()
+        .zip(ys)
+        .filter(|(_, y)| y.is_finite())
+        .map(|(f, y)| (*f, *y));
+    if freqs.len() <= 2 * TRACE_BUCKETS {
+        return finite.collect();
+    }
+    let (l0, span) = (f0.ln(), (f1.ln() - f0.ln()).max(f64::MIN_POSITIVE));
+    let mut out = Vec::with_capacity(3 * TRACE_BUCKETS);
+    let mut bucket = usize::MAX;
+    let mut group: Vec<(f64, f64)> = Vec::new();
+    let flush = |group: &mut Vec<(f64, f64)>, out: &mut Vec<(f64, f64)>| {
+        if let Some(&first) = group.first() {
+            let lo = group
+                .iter()
+                .copied()
+                .fold(first, |a, p| if p.1 < a.1 { p } else { a });
+            let hi = group
+                .iter()
+                .copied()
+                .fold(first, |a, p| if p.1 > a.1 { p } else { a });
+            let mut three = [first, lo, hi];
+            three.sort_by(|a, b| a.0.total_cmp(&b.0));
+            for p in three {
+                if out.last() != Some(&p) {
+                    out.push(p);
+                }
+            }
+        }
+        group.clear();
+    };
+    for (f, y) in finite {
+        let b = (((f.ln() - l0) / span) * TRACE_BUCKETS as f64) as usize;
+        if b != bucket {
+            flush(&mut group, &mut out);
+            bucket = b;
+        }
+        group.push((f, y));
+    }
+    flush(&mut group, &mut out);
+    out
+}
+
+const TRACE_BUCKETS: usize = 1500;
+
 /// "10.0 Hz" → "10 Hz", "-20.0" → "-20": axis labels without idle zeros.
 fn tidy_label(s: String) -> String {
     let (num, unit) = match s.find(' ') {
@@ -283,12 +333,7 @@ pub fn render_svg(input: &PlotInput<'_>) -> Result<String, PlotError> {
                 mesh.x_label_formatter(&|_| String::new());
             }
             mesh.draw().map_err(perr)?;
-            let pts = input
-                .freqs
-                .iter()
-                .zip(ys.iter())
-                .filter(|(_, y)| y.is_finite())
-                .map(|(f, y)| (*f, *y));
+            let pts = decimate(input.freqs, ys, f0, f1);
             chart
                 .draw_series(LineSeries::new(pts, TRACE.stroke_width(2)))
                 .map_err(perr)?;

@@ -47,6 +47,7 @@ pub mod design;
 pub mod export;
 #[doc(hidden)]
 pub mod fuzz_targets;
+pub mod ladders;
 pub mod metrics;
 pub mod network;
 pub mod response;

@@ -327,13 +327,24 @@ impl System {
         }
     }
 
-    /// `|G + jωC|·|x|` row-wise (for the scaled residual), accumulated into `y`.
-    pub fn multiply_abs(&self, omega: f64, x: &[Complex64], y: &mut [f64]) {
-        y.iter_mut().for_each(|v| *v = 0.0);
+    /// `y = (G + jωC)·x` and, row-wise, `s = |G + jωC|·|x|` in one pass, with |z| taken as
+    /// |Re z| + |Im z| (a norm within √2 of the modulus, and free of square roots).
+    pub fn multiply_with_bound(
+        &self,
+        omega: f64,
+        x: &[Complex64],
+        y: &mut [Complex64],
+        s: &mut [f64],
+    ) {
+        y.iter_mut().for_each(|v| *v = Complex64::new(0.0, 0.0));
+        s.iter_mut().for_each(|v| *v = 0.0);
+        let n = y.len().min(s.len()).min(x.len());
         for (k, &(r, c)) in self.pattern.iter().enumerate() {
-            let a = Complex64::new(self.g[k], omega * self.c[k]).norm();
-            if let (Some(yr), Some(xc)) = (y.get_mut(r), x.get(c)) {
-                *yr += a * xc.norm();
+            if r < n && c < n {
+                let a = Complex64::new(self.g[k], omega * self.c[k]);
+                let xc = x[c];
+                y[r] += a * xc;
+                s[r] += (a.re.abs() + a.im.abs()) * (xc.re.abs() + xc.im.abs());
             }
         }
     }
