@@ -7,12 +7,14 @@ mod output;
 mod report;
 
 use analyzer_core::design::{self, Design};
-use analyzer_core::metrics::{self, MetricOptions, Reference};
-use analyzer_core::response::Analysis;
+use analyzer_core::export::CsvStream;
+use analyzer_core::metrics::{self, MetricOptions, Reference, Trace};
+use analyzer_core::response::{Analysis, AnalysisError, ResponseUnit};
 use analyzer_core::solve::SolverKind;
-use analyzer_core::sweep::{self, SweepOptions};
+use analyzer_core::sweep::{self, Chunk, SweepOptions};
 use analyzer_core::units::{parse_value, Quantity};
 use clap::{Args, Parser, Subcommand, ValueEnum};
+use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
@@ -115,6 +117,18 @@ enum SolverArg {
     Small,
     Dense,
     Sparse,
+}
+
+/// Why the streamed sweep stopped: the network, or an output.
+enum Streamed {
+    Analysis(AnalysisError),
+    Out(Failure),
+}
+
+impl From<AnalysisError> for Streamed {
+    fn from(e: AnalysisError) -> Self {
+        Streamed::Analysis(e)
+    }
 }
 
 /// An error with the exit code it maps to.
@@ -282,41 +296,6 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
         derivatives: args.delay,
         sequential: false,
     };
-    let started = std::time::Instant::now();
-    let result =
-        sweep::run(&ev, &grid, &opts).map_err(|e| Failure::input(format!("{shown}: {e}")))?;
-    let solve_time = started.elapsed();
-    let figures = (0..analysis.responses().len())
-        .map(|i| metrics::figures(&ev, &result, i, &metric_opts))
-        .collect::<Result<Vec<_>, _>>()
-        .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
-
-    // Limits on responses left out by --only are not checked.
-    let mut checks = Vec::new();
-    for limit in &limits {
-        if let Some(i) = analysis
-            .responses()
-            .iter()
-            .position(|r| r.name == limit.response)
-        {
-            let r = metrics::check_limit(&ev, &result, i, &figures[i], limit)
-                .map_err(|e| Failure::input(format!("{shown}: limit {}: {e}", limit.name)))?;
-            checks.push(r);
-        }
-    }
-    // Limits on responses left out by --only are not checked.
-    let mut checks = Vec::new();
-    for limit in &limits {
-        if let Some(i) = analysis
-            .responses()
-            .iter()
-            .position(|r| r.name == limit.response)
-        {
-            let r = metrics::check_limit(&ev, &result, i, &figures[i], limit)
-                .map_err(|e| Failure::input(format!("{shown}: limit {}: {e}", limit.name)))?;
-            checks.push(r);
-        }
-    }
     let to_stdout = args.output.as_deref() == Some("-");
     let out_dir = match &args.output {
         Some(o) if o != "-" => PathBuf::from(o),
@@ -328,27 +307,113 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
             PathBuf::from(format!("{stem}-response"))
         }
     };
-    let plan = output::Plan {
-        analysis: &analysis,
-        sweep: &result,
-        figures: &figures,
-        unwrap: !args.wrapped,
-        plots: !args.no_plot,
-    };
-    let mut written = Vec::new();
-    if to_stdout {
-        plan.csv_to_stdout()?;
-    } else {
-        written = plan.write_dir(&out_dir)?;
-    }
-    if let Some(j) = &args.json {
-        let text = report::json(&analysis, &grid, &figures, &checks, caution);
-        if j == "-" {
-            println!("{text}");
-        } else {
-            output::write_files(&[(PathBuf::from(j), text.into_bytes())])?;
-            written.push(PathBuf::from(j));
+    let specs = analysis.responses();
+    let nr = specs.len();
+
+    // Stream: each chunk of the sweep goes to the CSVs and into the compact traces the
+    // figures and plots are computed from, so memory stays flat however long the sweep.
+    let mut staging = output::Staging::default();
+    let mut csv = Vec::with_capacity(nr);
+    if !to_stdout {
+        for spec in specs {
+            let path = out_dir.join(format!("{}.csv", output::safe_file_name(&spec.name)));
+            let h = staging.create(&path)?;
+            let w = staging
+                .writer(h)
+                .ok_or_else(|| Failure::output("internal: no output"))?;
+            let meta = [(
+                spec.name.as_str(),
+                spec.kind.unit(),
+                args.delay,
+                !args.wrapped,
+            )];
+            let stream = CsvStream::start(w, &meta)
+                .map_err(|e| Failure::output(format!("{}: {e}", path.display())))?;
+            csv.push((h, stream));
         }
+    }
+    let stdout = std::io::stdout();
+    let mut stdout = std::io::BufWriter::with_capacity(1 << 20, stdout.lock());
+    let mut stdout_csv = if to_stdout {
+        let meta: Vec<(&str, ResponseUnit, bool, bool)> = specs
+            .iter()
+            .map(|s| (s.name.as_str(), s.kind.unit(), args.delay, !args.wrapped))
+            .collect();
+        Some(
+            CsvStream::start(&mut stdout, &meta)
+                .map_err(|e| Failure::output(format!("stdout: {e}")))?,
+        )
+    } else {
+        None
+    };
+    let mut traces: Vec<Trace> = (0..nr).map(|_| Trace::new(args.delay)).collect();
+    let started = std::time::Instant::now();
+    let streamed = sweep::run_chunks(&ev, &grid, &opts, sweep::CHUNK_POINTS, |c: Chunk<'_>| {
+        let delay = |r: usize| c.delays.map(|d| d[r].as_slice());
+        for (r, t) in traces.iter_mut().enumerate() {
+            t.push(&c.values[r], delay(r));
+        }
+        if let Some(stream) = stdout_csv.as_mut() {
+            let values: Vec<&[_]> = c.values.iter().map(Vec::as_slice).collect();
+            let delays: Vec<Option<&[f64]>> = (0..nr).map(delay).collect();
+            stream
+                .rows(&mut stdout, c.freqs, &values, &delays)
+                .map_err(|e| Streamed::Out(Failure::output(format!("stdout: {e}"))))?;
+        }
+        for (r, (h, stream)) in csv.iter_mut().enumerate() {
+            let target = staging.target(*h);
+            let w = staging
+                .writer(*h)
+                .ok_or_else(|| Streamed::Out(Failure::output("internal: no output")))?;
+            stream
+                .rows(w, c.freqs, &[&c.values[r]], &[delay(r)])
+                .map_err(|e| Streamed::Out(Failure::output(format!("{target}: {e}"))))?;
+        }
+        Ok::<(), Streamed>(())
+    });
+    match streamed {
+        Ok(()) => {}
+        Err(Streamed::Analysis(e)) => return Err(Failure::input(format!("{shown}: {e}"))),
+        Err(Streamed::Out(f)) => return Err(f),
+    }
+    stdout
+        .flush()
+        .map_err(|e| Failure::output(format!("stdout: {e}")))?;
+    let solve_time = started.elapsed();
+
+    let figures = (0..nr)
+        .map(|i| metrics::figures(&ev, &grid, &traces[i], i, &metric_opts))
+        .collect::<Result<Vec<_>, _>>()
+        .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+    // Limits on responses left out by --only are not checked.
+    let mut checks = Vec::new();
+    for limit in &limits {
+        if let Some(i) = specs.iter().position(|r| r.name == limit.response) {
+            let r = metrics::check_limit(&ev, &grid, &traces[i], i, &figures[i], limit)
+                .map_err(|e| Failure::input(format!("{shown}: limit {}: {e}", limit.name)))?;
+            checks.push(r);
+        }
+    }
+    if !to_stdout && !args.no_plot {
+        let title = &analysis.network().title;
+        for (i, spec) in specs.iter().enumerate() {
+            let svg = output::svg(title, spec, &grid, &traces[i], &figures[i], !args.wrapped)?;
+            let path = out_dir.join(format!("{}.svg", output::safe_file_name(&spec.name)));
+            staging.bytes(&path, svg.as_bytes())?;
+        }
+    }
+    let json_text = args
+        .json
+        .as_ref()
+        .map(|_| report::json(&analysis, &grid, &figures, &checks, caution));
+    if let (Some(j), Some(text)) = (&args.json, &json_text) {
+        if j != "-" {
+            staging.bytes(Path::new(j), text.as_bytes())?;
+        }
+    }
+    let written = staging.commit()?;
+    if let (Some("-"), Some(text)) = (args.json.as_deref(), &json_text) {
+        println!("{text}");
     }
     if !args.quiet {
         let table = report::table(
@@ -371,15 +436,6 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
         } else {
             print!("{text}");
         }
-    }
-    if checks.iter().any(|c| !c.pass) {
-        let failed: Vec<&str> = checks
-            .iter()
-            .filter(|c| !c.pass)
-            .map(|c| c.limit.name.as_str())
-            .collect();
-        eprintln!("check failed: {}", failed.join(", "));
-        return Ok(EXIT_CHECK_FAILED);
     }
     let failed: Vec<&str> = checks
         .iter()

@@ -25,24 +25,46 @@ pub fn magnitudes_db(values: &[Complex64]) -> Vec<f64> {
 
 /// Phase in degrees of each value, unwrapped along the slice when `unwrap` is set.
 pub fn phases_deg(values: &[Complex64], unwrap: bool) -> Vec<f64> {
-    let mut out: Vec<f64> = values.iter().map(|v| v.arg().to_degrees()).collect();
-    if unwrap {
-        let mut offset = 0.0;
-        for i in 1..out.len() {
-            let prev = out[i - 1];
-            let mut cur = out[i] + offset;
+    let mut u = Unwrapper::default();
+    values
+        .iter()
+        .map(|v| {
+            let p = v.arg().to_degrees();
+            if unwrap {
+                u.next(p)
+            } else {
+                p
+            }
+        })
+        .collect()
+}
+
+/// Unwraps a phase sequence point by point, so a sweep can be unwrapped chunk by chunk: the
+/// first value is kept as it is (in (−180°, 180°]), each later one is moved by whole turns to
+/// within 180° of the one before.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Unwrapper {
+    prev: Option<f64>,
+    offset: f64,
+}
+
+impl Unwrapper {
+    /// The unwrapped value of the next principal phase (degrees).
+    pub fn next(&mut self, principal: f64) -> f64 {
+        let mut cur = principal + self.offset;
+        if let Some(prev) = self.prev {
             while cur - prev > 180.0 {
                 cur -= 360.0;
-                offset -= 360.0;
+                self.offset -= 360.0;
             }
             while cur - prev <= -180.0 {
                 cur += 360.0;
-                offset += 360.0;
+                self.offset += 360.0;
             }
-            out[i] = cur;
         }
+        self.prev = Some(cur);
+        cur
     }
-    out
 }
 
 /// One response's columns, ready to be written.
@@ -62,64 +84,112 @@ pub struct Columns<'a> {
 
 const BLOCK: usize = 16_384;
 
-/// Writes a CSV of one or more responses over `freqs`. Errors only from the writer.
-pub fn write_csv<W: Write>(out: &mut W, freqs: &[f64], cols: &[Columns<'_>]) -> io::Result<()> {
-    let prefix = cols.len() > 1;
-    let mut header = csv::Writer::from_writer(Vec::new());
-    let mut names = vec!["frequency_hz".to_string()];
-    for c in cols {
-        let p = if prefix {
-            format!("{}.", c.name)
-        } else {
-            String::new()
-        };
-        let s = c.unit.column_suffix();
-        names.push(format!("{p}magnitude_db"));
-        names.push(format!("{p}phase_deg"));
-        names.push(format!("{p}real{s}"));
-        names.push(format!("{p}imag{s}"));
-        if c.delay.is_some() {
-            names.push(format!("{p}group_delay_s"));
-        }
-    }
-    header.write_record(&names).map_err(io::Error::other)?;
-    out.write_all(
-        &header
-            .into_inner()
-            .map_err(|e| io::Error::other(e.to_string()))?,
-    )?;
+/// A CSV written chunk by chunk: the header first, then each chunk's rows formatted in
+/// parallel blocks and written in order. Phase unwrapping carries across chunks.
+#[derive(Clone, Debug)]
+pub struct CsvStream {
+    unwrap: Vec<Option<Unwrapper>>,
+}
 
-    let derived: Vec<(Vec<f64>, Vec<f64>)> = cols
-        .iter()
-        .map(|c| (magnitudes_db(c.values), phases_deg(c.values, c.unwrap)))
-        .collect();
-    let n = freqs.len();
-    let blocks: Vec<Vec<u8>> = (0..n.div_ceil(BLOCK))
-        .into_par_iter()
-        .map(|b| {
-            let mut buf = Vec::with_capacity(BLOCK * 24 * (1 + 5 * cols.len()));
-            let mut r = ryu::Buffer::new();
-            for k in b * BLOCK..((b + 1) * BLOCK).min(n) {
-                buf.extend_from_slice(r.format(freqs[k]).as_bytes());
-                for (c, (mag, ph)) in cols.iter().zip(&derived) {
-                    for v in [mag[k], ph[k], c.values[k].re, c.values[k].im] {
-                        buf.push(b',');
-                        buf.extend_from_slice(r.format(v).as_bytes());
-                    }
-                    if let Some(d) = c.delay {
-                        buf.push(b',');
-                        buf.extend_from_slice(r.format(d[k]).as_bytes());
-                    }
-                }
-                buf.push(b'\n');
+impl CsvStream {
+    /// Writes the header for these responses (name, unit, whether a delay column follows,
+    /// whether phase is unwrapped) and returns the stream.
+    pub fn start<W: Write>(
+        out: &mut W,
+        cols: &[(&str, ResponseUnit, bool, bool)],
+    ) -> io::Result<Self> {
+        let prefix = cols.len() > 1;
+        let mut header = csv::Writer::from_writer(Vec::new());
+        let mut names = vec!["frequency_hz".to_string()];
+        for &(name, unit, delay, _) in cols {
+            let p = if prefix {
+                format!("{name}.")
+            } else {
+                String::new()
+            };
+            let s = unit.column_suffix();
+            names.push(format!("{p}magnitude_db"));
+            names.push(format!("{p}phase_deg"));
+            names.push(format!("{p}real{s}"));
+            names.push(format!("{p}imag{s}"));
+            if delay {
+                names.push(format!("{p}group_delay_s"));
             }
-            buf
+        }
+        header.write_record(&names).map_err(io::Error::other)?;
+        out.write_all(
+            &header
+                .into_inner()
+                .map_err(|e| io::Error::other(e.to_string()))?,
+        )?;
+        Ok(CsvStream {
+            unwrap: cols.iter().map(|c| c.3.then(Unwrapper::default)).collect(),
         })
-        .collect();
-    for b in blocks {
-        out.write_all(&b)?;
     }
-    Ok(())
+
+    /// Writes the rows of one chunk: `values[r]` and `delays[r]` are response r's columns.
+    pub fn rows<W: Write>(
+        &mut self,
+        out: &mut W,
+        freqs: &[f64],
+        values: &[&[Complex64]],
+        delays: &[Option<&[f64]>],
+    ) -> io::Result<()> {
+        let derived: Vec<(Vec<f64>, Vec<f64>)> = values
+            .iter()
+            .zip(self.unwrap.iter_mut())
+            .map(|(v, u)| {
+                let mag = magnitudes_db(v);
+                let ph = v
+                    .iter()
+                    .map(|z| {
+                        let p = z.arg().to_degrees();
+                        u.as_mut().map_or(p, |u| u.next(p))
+                    })
+                    .collect();
+                (mag, ph)
+            })
+            .collect();
+        let n = freqs.len();
+        let blocks: Vec<Vec<u8>> = (0..n.div_ceil(BLOCK))
+            .into_par_iter()
+            .map(|b| {
+                let mut buf = Vec::with_capacity(BLOCK * 24 * (1 + 5 * values.len()));
+                let mut r = ryu::Buffer::new();
+                for k in b * BLOCK..((b + 1) * BLOCK).min(n) {
+                    buf.extend_from_slice(r.format(freqs[k]).as_bytes());
+                    for ((v, (mag, ph)), d) in values.iter().zip(&derived).zip(delays) {
+                        for x in [mag[k], ph[k], v[k].re, v[k].im] {
+                            buf.push(b',');
+                            buf.extend_from_slice(r.format(x).as_bytes());
+                        }
+                        if let Some(d) = d {
+                            buf.push(b',');
+                            buf.extend_from_slice(r.format(d[k]).as_bytes());
+                        }
+                    }
+                    buf.push(b'\n');
+                }
+                buf
+            })
+            .collect();
+        for b in blocks {
+            out.write_all(&b)?;
+        }
+        Ok(())
+    }
+}
+
+/// Writes a CSV of one or more whole responses over `freqs`. Errors only from the writer.
+pub fn write_csv<W: Write>(out: &mut W, freqs: &[f64], cols: &[Columns<'_>]) -> io::Result<()> {
+    let meta: Vec<(&str, ResponseUnit, bool, bool)> = cols
+        .iter()
+        .map(|c| (c.name, c.unit, c.delay.is_some(), c.unwrap))
+        .collect();
+    let mut stream = CsvStream::start(out, &meta)?;
+    let values: Vec<&[Complex64]> = cols.iter().map(|c| c.values).collect();
+    let delays: Vec<Option<&[f64]>> = cols.iter().map(|c| c.delay).collect();
+    stream.rows(out, freqs, &values, &delays)
 }
 
 /// A labelled point to mark on a plot.
@@ -135,22 +205,25 @@ pub struct Marker {
     pub label: String,
 }
 
+/// One panel of a plot: its axis label and the points of its trace.
+#[derive(Clone, Debug)]
+pub struct Panel {
+    /// Y-axis label with unit.
+    pub label: String,
+    /// (frequency, value) points, ascending in frequency; see [`decimate`].
+    pub points: Vec<(f64, f64)>,
+}
+
 /// What to draw.
 #[derive(Clone, Debug)]
 pub struct PlotInput<'a> {
     /// Title line (design title and response name).
     pub title: String,
-    /// Frequencies (Hz), ascending, > 0 for the log axis.
-    pub freqs: &'a [f64],
-    /// Magnitude (dB).
-    pub magnitude_db: &'a [f64],
-    /// Magnitude axis label.
-    pub magnitude_label: String,
-    /// Phase (degrees).
-    pub phase_deg: &'a [f64],
-    /// Group delay (s), drawn as a third panel when present.
-    pub delay_s: Option<&'a [f64]>,
-    /// Points to mark.
+    /// The frequency range of the axis (Hz, > 0).
+    pub range: (f64, f64),
+    /// Panels from top to bottom (magnitude, phase, optionally group delay).
+    pub panels: Vec<Panel>,
+    /// Points to mark; `Marker::panel` indexes `panels`.
     pub markers: &'a [Marker],
 }
 
@@ -159,18 +232,23 @@ pub struct PlotInput<'a> {
 #[error("plot: {0}")]
 pub struct PlotError(pub String);
 
-/// Points of a trace to draw: all of them when there are few; otherwise, per one of
-/// `TRACE_BUCKETS` equal steps of log-frequency, the first, lowest and highest point, so the
-/// drawn curve keeps every excursion a pixel could show while the SVG stays small.
-fn decimate(freqs: &[f64], ys: &[f64], f0: f64, f1: f64) -> Vec<(f64, f64)> {
-    let finite = freqs
-        .iter()
-        .zip(ys)
-        .filter(|(_, y)| y.is_finite())
-        .map(|(f, y)| (*f, *y));
-    if freqs.len() <= 2 * TRACE_BUCKETS {
+/// Points of a trace to draw, from point k's frequency `freq(k)` and value `y(k)` for
+/// `k < n`: all of them when there are few; otherwise, per one of `TRACE_BUCKETS` equal steps
+/// of log-frequency, the first, lowest and highest point, so the drawn curve keeps every
+/// excursion a pixel could show while the SVG stays small. Non-finite values and points at
+/// or below 0 Hz are left out.
+pub fn decimate(
+    n: usize,
+    freq: impl Fn(usize) -> f64,
+    y: impl Fn(usize) -> f64,
+) -> Vec<(f64, f64)> {
+    let finite = (0..n)
+        .map(|k| (freq(k), y(k)))
+        .filter(|(f, v)| *f > 0.0 && f.is_finite() && v.is_finite());
+    if n <= 2 * TRACE_BUCKETS {
         return finite.collect();
     }
+    let (f0, f1) = (freq(0).max(f64::MIN_POSITIVE), freq(n - 1));
     let (l0, span) = (f0.ln(), (f1.ln() - f0.ln()).max(f64::MIN_POSITIVE));
     let mut out = Vec::with_capacity(3 * TRACE_BUCKETS);
     let mut bucket = usize::MAX;
@@ -195,13 +273,13 @@ fn decimate(freqs: &[f64], ys: &[f64], f0: f64, f1: f64) -> Vec<(f64, f64)> {
         }
         group.clear();
     };
-    for (f, y) in finite {
+    for (f, v) in finite {
         let b = (((f.ln() - l0) / span) * TRACE_BUCKETS as f64) as usize;
         if b != bucket {
             flush(&mut group, &mut out);
             bucket = b;
         }
-        group.push((f, y));
+        group.push((f, v));
     }
     flush(&mut group, &mut out);
     out
@@ -248,19 +326,18 @@ const MINOR: RGBColor = RGBColor(0xe2, 0xe7, 0xec);
 /// Renders stacked panels (magnitude, phase and optionally group delay) that share a
 /// log-frequency axis with decade and minor grid lines, into an SVG string.
 pub fn render_svg(input: &PlotInput<'_>) -> Result<String, PlotError> {
-    let n = input.freqs.len();
-    if n == 0 || input.freqs.iter().any(|f| !(f.is_finite() && *f > 0.0)) {
+    let (mut f0, mut f1) = input.range;
+    if !(f0.is_finite() && f0 > 0.0 && f1.is_finite() && f1 >= f0) || input.panels.is_empty() {
         return Err(PlotError(
             "a Bode plot needs frequencies above 0 Hz on its log axis; start the sweep above 0 Hz"
                 .into(),
         ));
     }
-    let (mut f0, mut f1) = (input.freqs[0], input.freqs[n - 1]);
     if f1 <= f0 {
         f0 /= 1.5;
         f1 *= 1.5;
     }
-    let panels = if input.delay_s.is_some() { 3 } else { 2 };
+    let panels = input.panels.len();
     let height = 220 * panels as u32 + 70;
     let mut svg = String::new();
     {
@@ -274,23 +351,16 @@ pub fn render_svg(input: &PlotInput<'_>) -> Result<String, PlotError> {
         ))
         .map_err(perr)?;
         let areas = body.split_evenly((panels, 1));
-        let series: Vec<(&[f64], String, f64)> = {
-            let mut s = vec![
-                (input.magnitude_db, input.magnitude_label.clone(), 1.0),
-                (input.phase_deg, "phase (°)".to_string(), 10.0),
-            ];
-            if let Some(d) = input.delay_s {
-                s.push((d, "group delay (s)".to_string(), 0.0));
-            }
-            s
-        };
-        for (p, (area, (ys, label, min_span))) in areas.iter().zip(series).enumerate() {
-            let min_span = if min_span == 0.0 {
-                ys.iter().fold(0.0f64, |a, v| a.max(v.abs())) * 0.1 + 1e-15
-            } else {
-                min_span
+        for (p, (area, panel)) in areas.iter().zip(&input.panels).enumerate() {
+            let ys: Vec<f64> = panel.points.iter().map(|q| q.1).collect();
+            // Magnitude spans at least 1 dB, phase 10°, anything else a tenth of its size.
+            let min_span = match p {
+                0 => 1.0,
+                1 => 10.0,
+                _ => ys.iter().fold(0.0f64, |a, v| a.max(v.abs())) * 0.1 + 1e-15,
             };
-            let (y0, y1) = padded_range(ys, min_span);
+            let (y0, y1) = padded_range(&ys, min_span);
+            let label = panel.label.clone();
             let last = p + 1 == panels;
             let mut chart = ChartBuilder::on(area)
                 .margin_left(12)
@@ -333,9 +403,11 @@ pub fn render_svg(input: &PlotInput<'_>) -> Result<String, PlotError> {
                 mesh.x_label_formatter(&|_| String::new());
             }
             mesh.draw().map_err(perr)?;
-            let pts = decimate(input.freqs, ys, f0, f1);
             chart
-                .draw_series(LineSeries::new(pts, TRACE.stroke_width(2)))
+                .draw_series(LineSeries::new(
+                    panel.points.iter().copied(),
+                    TRACE.stroke_width(2),
+                ))
                 .map_err(perr)?;
             // Labels are staggered upwards so neighbouring markers stay readable.
             let shown = input

@@ -72,6 +72,8 @@ pub fn design(data: &[u8]) {
         return;
     };
     for i in 0..analysis.responses().len() {
-        let _ = metrics::figures(&ev, &s, i, &MetricOptions::default());
+        let delays = s.delays.as_ref().map(|d| d[i].as_slice());
+        let trace = metrics::Trace::from_values(&s.values[i], delays);
+        let _ = metrics::figures(&ev, &grid, &trace, i, &MetricOptions::default());
     }
 }

@@ -17,9 +17,8 @@
 //! * Loop gains: gain crossover (|L| = 0 dB) and phase margin `180° + ∠L`, phase crossover
 //!   (∠L = −180° mod 360°, on the unwrapped phase) and gain margin `−20·log10|L|` there.
 
-use crate::export::{magnitudes_db, phases_deg};
 use crate::response::{AnalysisError, Evaluator, Point, ResponseUnit, Workspace};
-use crate::sweep::Sweep;
+use crate::sweep::Grid;
 use crate::units::{Decibels, Degrees, Hertz, Seconds};
 use serde::Serialize;
 use std::f64::consts::PI;
@@ -182,14 +181,38 @@ pub struct LimitResult {
 /// refined peak and notch inside it (so a narrow peak between grid points is not missed).
 pub fn check_limit(
     ev: &Evaluator<'_>,
-    sweep: &Sweep,
+    grid: &Grid,
+    trace: &Trace,
     index: usize,
     figures: &Figures,
     limit: &Limit,
 ) -> Result<LimitResult, AnalysisError> {
     let mut probe = Probe::new(ev, index);
     let inside = |f: f64| f >= limit.from && f <= limit.to;
-    let mut freqs: Vec<f64> = sweep.freqs.iter().copied().filter(|f| inside(*f)).collect();
+    let mut worst = (f64::INFINITY, limit.from);
+    let mut consider = |m: f64, f: f64| {
+        // A NaN margin (an exact zero of |H| against a min_db) is a failure.
+        let m = if m.is_nan() { f64::NEG_INFINITY } else { m };
+        if m < worst.0 {
+            worst = (m, f);
+        }
+    };
+    let margins_of = |db: f64| {
+        [
+            limit.max_db.map(|hi| hi - db),
+            limit.min_db.map(|lo| db - lo),
+        ]
+        .into_iter()
+        .flatten()
+    };
+    // Grid points from the trace; refined points and the range ends re-solved.
+    for (k, &db) in trace.db.iter().enumerate().take(grid.len()) {
+        let f = grid.at(k);
+        if inside(f) {
+            margins_of(db).for_each(|m| consider(m, f));
+        }
+    }
+    let mut freqs: Vec<f64> = Vec::new();
     freqs.extend(
         figures
             .peaks
@@ -223,6 +246,51 @@ pub fn check_limit(
         worst_margin_db: worst.0,
         worst_at_hz: worst.1,
     })
+}
+
+/// What the figures need of a swept response, kept compactly so a sweep of millions of
+/// points can be summarised without holding its complex values: magnitude in dB (f64) and
+/// the phase unwrapped along the sweep (f32; only used to bracket, every figure is then
+/// re-solved), and optionally the group delay (f32, for plots). Built chunk by chunk.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Trace {
+    /// 20·log10|H| per point.
+    pub db: Vec<f64>,
+    /// Unwrapped phase in degrees per point (see [`crate::export::phases_deg`]).
+    pub phase_deg: Vec<f32>,
+    /// Group delay (s) per point, if it was computed.
+    pub delay_s: Option<Vec<f32>>,
+    unwrap: crate::export::Unwrapper,
+}
+
+impl Trace {
+    /// An empty trace, with room for a delay column when `delay` is set.
+    pub fn new(delay: bool) -> Self {
+        Trace {
+            delay_s: delay.then(Vec::new),
+            ..Trace::default()
+        }
+    }
+
+    /// Appends the next points, in sweep order.
+    pub fn push(&mut self, values: &[num_complex::Complex64], delays: Option<&[f64]>) {
+        self.db
+            .extend(values.iter().map(|v| 20.0 * v.norm().log10()));
+        for v in values {
+            let p = self.unwrap.next(v.arg().to_degrees());
+            self.phase_deg.push(p as f32);
+        }
+        if let (Some(d), Some(src)) = (self.delay_s.as_mut(), delays) {
+            d.extend(src.iter().map(|&x| x as f32));
+        }
+    }
+
+    /// A trace of a whole column at once.
+    pub fn from_values(values: &[num_complex::Complex64], delays: Option<&[f64]>) -> Self {
+        let mut t = Trace::new(delays.is_some());
+        t.push(values, delays);
+        t
+    }
 }
 
 /// Brent's bracketing root-finder on `[a, b]` with `f(a)`, `f(b)` of opposite sign (or one
@@ -465,28 +533,31 @@ impl<'e, 'a> Probe<'e, 'a> {
     }
 }
 
-/// Computes every figure of response `index` of a finished sweep.
+/// Computes every figure of response `index` from its trace over `grid`.
 pub fn figures(
     ev: &Evaluator<'_>,
-    sweep: &Sweep,
+    grid: &Grid,
+    trace: &Trace,
     index: usize,
     opts: &MetricOptions,
 ) -> Result<Figures, AnalysisError> {
     let spec = &ev.analysis().responses()[index];
-    let values = &sweep.values[index];
-    let freqs = &sweep.freqs;
     let mut probe = Probe::new(ev, index);
-    let db = magnitudes_db(values);
-    let n = freqs.len();
+    let db = &trace.db;
+    let n = grid.len().min(db.len());
+    let freq = |k: usize| grid.at(k);
     // Grid points at 0 Hz cannot sit on a log axis; refinements work in ln f.
-    let usable: Vec<usize> = (0..n)
-        .filter(|&k| freqs[k] > 0.0 && db[k].is_finite())
-        .collect();
+    let usable = || (0..n).filter(move |&k| freq(k) > 0.0 && db[k].is_finite());
 
     let mut peaks = Vec::new();
     let mut notches = Vec::new();
-    for w in usable.windows(3) {
-        let (i, j, k) = (w[0], w[1], w[2]);
+    let mut window: [usize; 3] = [0; 3];
+    for (count, k) in usable().enumerate() {
+        window = [window[1], window[2], k];
+        if count < 2 {
+            continue;
+        }
+        let [i, j, k] = window;
         let is_peak = db[j] > db[i] && db[j] >= db[k];
         let is_notch = db[j] < db[i] && db[j] <= db[k];
         // Rounding wiggles deep in a stopband are not extrema worth a name.
@@ -494,7 +565,7 @@ pub fn figures(
         if !(is_peak || is_notch) || prominence < 1e-6 {
             continue;
         }
-        let f = probe.extremum(freqs[i], freqs[j], freqs[k], is_peak)?;
+        let f = probe.extremum(freq(i), freq(j), freq(k), is_peak)?;
         let e = Extremum {
             freq_hz: f,
             magnitude_db: probe.db(f)?,
@@ -512,15 +583,12 @@ pub fn figures(
         Reference::Absolute => (0.0, None),
         Reference::AtFrequency(f) => (probe.db(f)?, Some(f)),
         Reference::PassbandMaximum => {
-            let kmax = usable
-                .iter()
-                .copied()
-                .max_by(|&a, &b| db[a].total_cmp(&db[b]));
+            let kmax = usable().max_by(|&a, &b| db[a].total_cmp(&db[b]));
             match kmax {
                 None => (0.0, None),
                 Some(k) => match peaks.iter().find(|p| p.magnitude_db >= db[k]) {
                     Some(p) => (p.magnitude_db, Some(p.freq_hz)),
-                    None => (db[k], Some(freqs[k])),
+                    None => (db[k], Some(freq(k))),
                 },
             }
         }
@@ -528,17 +596,18 @@ pub fn figures(
     let level = reference_db + opts.level_db;
     // Refined extrema join the grid as bracketing points, so a narrow peak between two grid
     // points still yields its crossings.
-    let grid_pts: Vec<(f64, f64)> = usable.iter().map(|&k| (freqs[k], db[k])).collect();
-    let extra: Vec<(f64, f64)> = peaks
+    let mut extra: Vec<(f64, f64)> = peaks
         .iter()
         .chain(&notches)
         .map(|e| (e.freq_hz, e.magnitude_db))
         .chain(reference_hz.map(|f| (f, reference_db)))
         .filter(|p| p.1.is_finite())
         .collect();
-    let pts = merged(&grid_pts, &extra);
-    let crossings = crossings_at(&mut probe, &pts, level)?;
-    let rf = reference_hz.unwrap_or_else(|| usable.first().map_or(1.0, |&k| freqs[k]));
+    extra.sort_by(|a, b| a.0.total_cmp(&b.0));
+    let pts = || merged(usable().map(|k| (freq(k), db[k])), &extra);
+    let crossings = crossings_at(&mut probe, pts(), level)?;
+    let first = usable().next();
+    let rf = reference_hz.unwrap_or_else(|| first.map_or(1.0, freq));
     let lower = crossings
         .iter()
         .rev()
@@ -555,7 +624,7 @@ pub fn figures(
 
     // Q of each peak from its own −3 dB points.
     for p in peaks.iter_mut() {
-        let cs = crossings_at(&mut probe, &pts, p.magnitude_db + HALF_POWER_DB)?;
+        let cs = crossings_at(&mut probe, pts(), p.magnitude_db + HALF_POWER_DB)?;
         let l = cs.iter().rev().find(|c| c.freq_hz < p.freq_hz);
         let u = cs.iter().find(|c| c.freq_hz > p.freq_hz);
         if let (Some(l), Some(u)) = (l, u) {
@@ -569,16 +638,22 @@ pub fn figures(
     // written as a ratio of a voltage and a current.
     let resonances = match spec.kind.unit() {
         ResponseUnit::Ohms | ResponseUnit::Siemens => {
-            resonances(&mut probe, freqs, values, &pts, &usable, spec.kind.unit())?
+            let wrapped = |k: usize| {
+                let p = f64::from(trace.phase_deg[k]);
+                p - 360.0 * (p / 360.0).round()
+            };
+            let phase_pts = usable().map(|k| (freq(k), wrapped(k)));
+            resonances(&mut probe, phase_pts, &pts, spec.kind.unit())?
         }
         ResponseUnit::Ratio => Vec::new(),
     };
-    let group_delay_s = match usable.first() {
-        Some(&k) => Some(probe.point(reference_hz.unwrap_or(freqs[k]))?.group_delay()),
+    let group_delay_s = match first {
+        Some(k) => Some(probe.point(reference_hz.unwrap_or(freq(k)))?.group_delay()),
         None => None,
     };
     let margins = if spec.loop_gain {
-        Some(margins(&mut probe, freqs, values, &pts, &usable)?)
+        let phase_pts = usable().map(|k| (freq(k), f64::from(trace.phase_deg[k])));
+        Some(margins(&mut probe, phase_pts, pts())?)
     } else {
         None
     };
@@ -605,12 +680,15 @@ pub fn figures(
 /// Crossings of `level` along `pts` (frequency, dB), ascending, each refined on the network.
 fn crossings_at(
     probe: &mut Probe<'_, '_>,
-    pts: &[(f64, f64)],
+    pts: impl Iterator<Item = (f64, f64)>,
     level: f64,
 ) -> Result<Vec<Crossing>, AnalysisError> {
     let mut out = Vec::new();
-    for w in pts.windows(2) {
-        let ((fi, di), (fj, dj)) = (w[0], w[1]);
+    let mut prev: Option<(f64, f64)> = None;
+    for (fj, dj) in pts {
+        let Some((fi, di)) = prev.replace((fj, dj)) else {
+            continue;
+        };
         let (gi, gj) = (di - level, dj - level);
         if gi == 0.0 && out.last().map(|c: &Crossing| c.freq_hz) != Some(fi) {
             out.push(Crossing {
@@ -634,33 +712,46 @@ fn crossings_at(
     Ok(out)
 }
 
-/// The grid's (frequency, dB) points with refined extra points merged in, ascending.
-fn merged(grid: &[(f64, f64)], extra: &[(f64, f64)]) -> Vec<(f64, f64)> {
-    let mut v: Vec<(f64, f64)> = grid.iter().chain(extra).copied().collect();
-    v.sort_by(|a, b| a.0.total_cmp(&b.0));
-    v.dedup_by(|a, b| a.0 == b.0);
-    v
+/// The grid's (frequency, dB) points with refined extra points (sorted) merged in, ascending,
+/// without copying the grid.
+fn merged<'x>(
+    grid: impl Iterator<Item = (f64, f64)> + 'x,
+    extra: &'x [(f64, f64)],
+) -> impl Iterator<Item = (f64, f64)> + 'x {
+    let mut extra = extra.iter().copied().peekable();
+    let mut grid = grid.peekable();
+    let mut last = f64::NAN;
+    std::iter::from_fn(move || loop {
+        let next = match (grid.peek(), extra.peek()) {
+            (Some(g), Some(e)) if e.0 < g.0 => extra.next(),
+            (Some(_), _) => grid.next(),
+            (None, Some(_)) => extra.next(),
+            (None, None) => None,
+        }?;
+        if next.0 != last {
+            last = next.0;
+            return Some(next);
+        }
+    })
 }
 
-fn resonances(
+fn resonances<'p, I: Iterator<Item = (f64, f64)> + 'p>(
     probe: &mut Probe<'_, '_>,
-    freqs: &[f64],
-    values: &[num_complex::Complex64],
-    pts: &[(f64, f64)],
-    usable: &[usize],
+    phase_pts: impl Iterator<Item = (f64, f64)>,
+    pts: &impl Fn() -> I,
     unit: ResponseUnit,
 ) -> Result<Vec<Resonance>, AnalysisError> {
     let mut out = Vec::new();
-    for w in usable.windows(2) {
-        let (i, j) = (w[0], w[1]);
-        let (pi, pj) = (values[i].arg(), values[j].arg());
-        // A zero crossing of the phase with the value in the right half-plane.
-        if (pi < 0.0) == (pj < 0.0) || values[i].re <= 0.0 || values[j].re <= 0.0 {
+    let mut prev: Option<(f64, f64)> = None;
+    for (fj, pj) in phase_pts {
+        let Some((fi, pi)) = prev.replace((fj, pj)) else {
+            continue;
+        };
+        // A zero crossing of the phase with the value in the right half-plane (|φ| < 90°).
+        if (pi < 0.0) == (pj < 0.0) || pi.abs() >= 90.0 || pj.abs() >= 90.0 {
             continue;
         }
-        let f0 = probe.root_in(freqs[i], freqs[j], pi, pj, |p, f| {
-            Ok(p.point(f)?.value.arg())
-        })?;
+        let f0 = probe.root_in(fi, fj, pi, pj, |p, f| Ok(p.point(f)?.value.arg()))?;
         let pt = probe.point(f0)?;
         let omega0 = 2.0 * PI * f0;
         let slope = (pt.derivative / pt.value).im;
@@ -679,7 +770,7 @@ fn resonances(
         } else {
             here - HALF_POWER_DB
         };
-        let cs = crossings_at(probe, &merged(pts, &[(f0, here)]), level)?;
+        let cs = crossings_at(probe, merged(pts(), &[(f0, here)]), level)?;
         let l = cs.iter().rev().find(|c| c.freq_hz < f0);
         let u = cs.iter().find(|c| c.freq_hz > f0);
         let q_bandwidth = match (l, u) {
@@ -702,12 +793,9 @@ fn resonances(
 
 fn margins(
     probe: &mut Probe<'_, '_>,
-    freqs: &[f64],
-    values: &[num_complex::Complex64],
-    pts: &[(f64, f64)],
-    usable: &[usize],
+    phase_pts: impl Iterator<Item = (f64, f64)>,
+    db_pts: impl Iterator<Item = (f64, f64)>,
 ) -> Result<Margins, AnalysisError> {
-    let unwrapped = phases_deg(values, true);
     // Unwrapped phase near a grid point: the principal value moved by whole turns to lie
     // closest to the grid's unwrapped value.
     let local_phase = |p: &mut Probe<'_, '_>, f: f64, near: f64| -> Result<f64, AnalysisError> {
@@ -720,32 +808,27 @@ fn margins(
         phase_crossover_hz: None,
         gain_margin_db: None,
     };
-    let gc = crossings_at(probe, pts, 0.0)?;
+    let phases: Vec<(f64, f64)> = phase_pts.collect();
+    let gc = crossings_at(probe, db_pts, 0.0)?;
     if let Some(c) = gc.first() {
-        let k = usable
-            .iter()
-            .copied()
-            .min_by(|&a, &b| {
-                (freqs[a] - c.freq_hz)
-                    .abs()
-                    .total_cmp(&(freqs[b] - c.freq_hz).abs())
-            })
-            .unwrap_or(0);
-        let ph = local_phase(probe, c.freq_hz, unwrapped[k])?;
-        m.gain_crossover_hz = Some(c.freq_hz);
-        m.phase_margin_deg = Some(180.0 + ph);
+        let k = phases
+            .partition_point(|p| p.0 < c.freq_hz)
+            .min(phases.len().saturating_sub(1));
+        if let Some(&(_, near)) = phases.get(k) {
+            let ph = local_phase(probe, c.freq_hz, near)?;
+            m.gain_crossover_hz = Some(c.freq_hz);
+            m.phase_margin_deg = Some(180.0 + ph);
+        }
     }
-    'outer: for w in usable.windows(2) {
-        let (i, j) = (w[0], w[1]);
-        let (a, b) = (unwrapped[i], unwrapped[j]);
+    'outer: for w in phases.windows(2) {
+        let ((fi, a), (fj, b)) = (w[0], w[1]);
         // Levels −180 − 360·k between the two grid phases.
-        let lo = a.min(b);
-        let hi = a.max(b);
+        let (lo, hi) = (a.min(b), a.max(b));
         let mut level = -180.0 + 360.0 * ((lo + 180.0) / 360.0).ceil();
         while level <= hi {
             if (a - level) * (b - level) < 0.0 || b == level {
                 let near = 0.5 * (a + b);
-                let f = probe.root_in(freqs[i], freqs[j], a - level, b - level, |p, f| {
+                let f = probe.root_in(fi, fj, a - level, b - level, |p, f| {
                     Ok(local_phase(p, f, near)? - level)
                 })?;
                 m.phase_crossover_hz = Some(f);

@@ -131,19 +131,38 @@ fn make_small<'a>(sys: &'a System) -> Box<dyn PointSolver + 'a> {
     small_dispatch!(sys, 1 2 3 4 5 6 7 8 9 10 11 12 13 14 15 16)
 }
 
-/// Complex LU with partial pivoting on an N×N stack array (row-major).
-pub struct SmallLu<'a, const N: usize> {
-    sys: &'a System,
-    a: [[Complex64; N]; N],
+/// Complex LU with partial pivoting on N×N stack arrays, real and imaginary parts kept in
+/// separate row-major arrays so the elimination's inner loop runs on plain `f64` lanes and
+/// vectorises. `G` and `C` are laid out densely once, so forming `G + jωC` is a copy and a
+/// scaled copy.
+pub struct SmallLu<const N: usize> {
+    g: [[f64; N]; N],
+    c: [[f64; N]; N],
+    re: [[f64; N]; N],
+    im: [[f64; N]; N],
+    inv_re: [f64; N],
+    inv_im: [f64; N],
     perm: [usize; N],
 }
 
-impl<'a, const N: usize> SmallLu<'a, N> {
-    /// A solver for `sys`, which must have exactly N unknowns.
-    pub fn new(sys: &'a System) -> Self {
+impl<const N: usize> SmallLu<N> {
+    /// A solver for `sys`, which must have exactly N unknowns (other entries are ignored).
+    pub fn new(sys: &System) -> Self {
+        let mut g = [[0.0; N]; N];
+        let mut c = [[0.0; N]; N];
+        for (k, &(r, col)) in sys.pattern.iter().enumerate() {
+            if r < N && col < N {
+                g[r][col] = sys.g[k];
+                c[r][col] = sys.c[k];
+            }
+        }
         SmallLu {
-            sys,
-            a: [[Complex64::new(0.0, 0.0); N]; N],
+            g,
+            c,
+            re: [[0.0; N]; N],
+            im: [[0.0; N]; N],
+            inv_re: [0.0; N],
+            inv_im: [0.0; N],
             perm: [0; N],
         }
     }
@@ -154,13 +173,13 @@ fn norm1(z: Complex64) -> f64 {
     z.re.abs() + z.im.abs()
 }
 
-impl<const N: usize> PointSolver for SmallLu<'_, N> {
+impl<const N: usize> PointSolver for SmallLu<N> {
     fn factor(&mut self, omega: f64) -> Result<(), Singular> {
-        let a = &mut self.a;
-        *a = [[Complex64::new(0.0, 0.0); N]; N];
-        for (k, &(r, c)) in self.sys.pattern.iter().enumerate() {
-            if r < N && c < N {
-                a[r][c] = Complex64::new(self.sys.g[k], omega * self.sys.c[k]);
+        let (re, im) = (&mut self.re, &mut self.im);
+        *re = self.g;
+        for (row, crow) in im.iter_mut().zip(&self.c) {
+            for (v, c) in row.iter_mut().zip(crow) {
+                *v = omega * c;
             }
         }
         for (i, p) in self.perm.iter_mut().enumerate() {
@@ -168,9 +187,9 @@ impl<const N: usize> PointSolver for SmallLu<'_, N> {
         }
         for k in 0..N {
             let mut p = k;
-            let mut best = norm1(a[k][k]);
-            for (i, row) in a.iter().enumerate().skip(k + 1) {
-                let m = norm1(row[k]);
+            let mut best = re[k][k].abs() + im[k][k].abs();
+            for i in k + 1..N {
+                let m = re[i][k].abs() + im[i][k].abs();
                 if m > best {
                     best = m;
                     p = i;
@@ -180,20 +199,29 @@ impl<const N: usize> PointSolver for SmallLu<'_, N> {
                 return Err(Singular { column: k });
             }
             if p != k {
-                a.swap(p, k);
+                re.swap(p, k);
+                im.swap(p, k);
                 self.perm.swap(p, k);
             }
-            let pivot = a[k][k];
-            let inv = pivot.conj() / pivot.norm_sqr();
-            let (top, bottom) = a.split_at_mut(k + 1);
-            let rowk = &top[k];
-            for row in bottom.iter_mut() {
-                let l = row[k] * inv;
-                row[k] = l;
-                if l != Complex64::new(0.0, 0.0) {
-                    for j in k + 1..N {
-                        row[j] -= l * rowk[j];
-                    }
+            let (pr, pi) = (re[k][k], im[k][k]);
+            let d = 1.0 / (pr * pr + pi * pi);
+            let (ir, ii) = (pr * d, -pi * d);
+            self.inv_re[k] = ir;
+            self.inv_im[k] = ii;
+            let (re_top, re_bottom) = re.split_at_mut(k + 1);
+            let (im_top, im_bottom) = im.split_at_mut(k + 1);
+            let (kr, ki) = (&re_top[k], &im_top[k]);
+            for (rr, ri) in re_bottom.iter_mut().zip(im_bottom.iter_mut()) {
+                let (ar, ai) = (rr[k], ri[k]);
+                let (lr, li) = (ar * ir - ai * ii, ar * ii + ai * ir);
+                rr[k] = lr;
+                ri[k] = li;
+                if lr == 0.0 && li == 0.0 {
+                    continue;
+                }
+                for j in k + 1..N {
+                    rr[j] -= lr * kr[j] - li * ki[j];
+                    ri[j] -= lr * ki[j] + li * kr[j];
                 }
             }
         }
@@ -204,27 +232,36 @@ impl<const N: usize> PointSolver for SmallLu<'_, N> {
         if rhs.len() != N {
             return;
         }
-        let mut y = [Complex64::new(0.0, 0.0); N];
+        let (re, im) = (&self.re, &self.im);
+        let mut yr = [0.0; N];
+        let mut yi = [0.0; N];
         for i in 0..N {
-            y[i] = rhs[self.perm[i]];
+            let v = rhs[self.perm[i]];
+            yr[i] = v.re;
+            yi[i] = v.im;
         }
-        let a = &self.a;
         for i in 1..N {
-            let mut s = y[i];
+            let (mut sr, mut si) = (yr[i], yi[i]);
             for j in 0..i {
-                s -= a[i][j] * y[j];
+                sr -= re[i][j] * yr[j] - im[i][j] * yi[j];
+                si -= re[i][j] * yi[j] + im[i][j] * yr[j];
             }
-            y[i] = s;
+            yr[i] = sr;
+            yi[i] = si;
         }
         for i in (0..N).rev() {
-            let mut s = y[i];
+            let (mut sr, mut si) = (yr[i], yi[i]);
             for j in i + 1..N {
-                s -= a[i][j] * y[j];
+                sr -= re[i][j] * yr[j] - im[i][j] * yi[j];
+                si -= re[i][j] * yi[j] + im[i][j] * yr[j];
             }
-            let d = a[i][i];
-            y[i] = s * (d.conj() / d.norm_sqr());
+            let (dr, di) = (self.inv_re[i], self.inv_im[i]);
+            yr[i] = sr * dr - si * di;
+            yi[i] = sr * di + si * dr;
         }
-        rhs.copy_from_slice(&y);
+        for (v, (r, i)) in rhs.iter_mut().zip(yr.iter().zip(&yi)) {
+            *v = Complex64::new(*r, *i);
+        }
     }
 }
 
@@ -385,8 +422,7 @@ pub enum SolveFailure {
     },
 }
 
-/// Largest acceptable relative backward error `‖b − A·x‖∞ / (‖|A|·|x|‖∞ + ‖b‖∞)` (entries
-/// measured as |Re| + |Im|).
+/// Largest acceptable normwise relative backward error `‖b − A·x‖∞ / (‖A‖∞·‖x‖∞ + ‖b‖∞)`.
 pub const RESIDUAL_LIMIT: f64 = 1e-9;
 
 /// Scratch for [`solve_checked`], reused across points.
@@ -394,7 +430,6 @@ pub const RESIDUAL_LIMIT: f64 = 1e-9;
 pub struct CheckScratch {
     r: Vec<Complex64>,
     ax: Vec<Complex64>,
-    abs: Vec<f64>,
 }
 
 /// Solves `rhs` in place with an already factored solver, checks the scaled residual, and
@@ -434,22 +469,23 @@ pub fn solve_checked(
     Ok(())
 }
 
-/// Relative backward error of `x` against `b` (kept in `scratch.r`), in the 1-norm of each
-/// complex entry; leaves the residual vector `b − A·x` in `scratch.ax`.
+/// Normwise relative backward error of `x` against `b` (kept in `scratch.r`):
+/// `‖b − A·x‖∞ / (‖A‖∞·‖x‖∞ + ‖b‖∞)`, entries measured as |Re| + |Im| and `‖A‖∞` from the
+/// row sums of |G| and |C| kept by the system. Leaves `b − A·x` in `scratch.ax`.
 fn backward_error(sys: &System, omega: f64, x: &[Complex64], scratch: &mut CheckScratch) -> f64 {
     let n = sys.n;
     scratch.ax.resize(n, Complex64::new(0.0, 0.0));
-    scratch.abs.resize(n, 0.0);
-    sys.multiply_with_bound(omega, x, &mut scratch.ax, &mut scratch.abs);
+    sys.multiply(omega, x, &mut scratch.ax, false);
     let l1 = |z: Complex64| z.re.abs() + z.im.abs();
-    let mut num: f64 = 0.0;
-    let mut den: f64 = 0.0;
-    for i in 0..n {
-        let r = scratch.r[i] - scratch.ax[i];
-        scratch.ax[i] = r;
+    let (mut num, mut bnorm, mut xnorm): (f64, f64, f64) = (0.0, 0.0, 0.0);
+    for ((ax, b), xi) in scratch.ax.iter_mut().zip(&scratch.r).zip(x).take(n) {
+        let r = *b - *ax;
+        *ax = r;
         num = num.max(l1(r));
-        den = den.max(scratch.abs[i] + l1(scratch.r[i]));
+        bnorm = bnorm.max(l1(*b));
+        xnorm = xnorm.max(l1(*xi));
     }
+    let den = sys.norm_inf(omega) * xnorm + bnorm;
     if num.is_nan() || den.is_nan() {
         return f64::INFINITY;
     }

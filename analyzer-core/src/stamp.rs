@@ -94,6 +94,8 @@ pub struct System {
     /// Meaning of each unknown.
     pub unknowns: Vec<Unknown>,
     branch: Vec<Option<usize>>,
+    /// Per row, Σ|g| and Σ|c| (for the residual check's norm).
+    row_abs: Vec<(f64, f64)>,
 }
 
 struct Stamper {
@@ -187,6 +189,7 @@ impl System {
             b: Vec::new(),
             unknowns,
             branch,
+            row_abs: vec![(0.0, 0.0); n],
         };
         let mut st = Stamper {
             triplets: Vec::with_capacity(4 * net.parts().len() + n),
@@ -208,6 +211,12 @@ impl System {
                 sys.pattern.push((r, c));
                 sys.g.push(gv);
                 sys.c.push(cv);
+            }
+        }
+        for (k, &(r, _)) in sys.pattern.iter().enumerate() {
+            if let Some(row) = sys.row_abs.get_mut(r) {
+                row.0 += sys.g[k].abs();
+                row.1 += sys.c[k].abs();
             }
         }
         sys.b = st.b;
@@ -327,26 +336,13 @@ impl System {
         }
     }
 
-    /// `y = (G + jωC)·x` and, row-wise, `s = |G + jωC|·|x|` in one pass, with |z| taken as
-    /// |Re z| + |Im z| (a norm within √2 of the modulus, and free of square roots).
-    pub fn multiply_with_bound(
-        &self,
-        omega: f64,
-        x: &[Complex64],
-        y: &mut [Complex64],
-        s: &mut [f64],
-    ) {
-        y.iter_mut().for_each(|v| *v = Complex64::new(0.0, 0.0));
-        s.iter_mut().for_each(|v| *v = 0.0);
-        let n = y.len().min(s.len()).min(x.len());
-        for (k, &(r, c)) in self.pattern.iter().enumerate() {
-            if r < n && c < n {
-                let a = Complex64::new(self.g[k], omega * self.c[k]);
-                let xc = x[c];
-                y[r] += a * xc;
-                s[r] += (a.re.abs() + a.im.abs()) * (xc.re.abs() + xc.im.abs());
-            }
-        }
+    /// `‖G + jωC‖∞` bounded by `max_i (Σ|g_ij| + ω·Σ|c_ij|)` from the stored row sums, with
+    /// |z| taken as |Re z| + |Im z|.
+    pub fn norm_inf(&self, omega: f64) -> f64 {
+        self.row_abs
+            .iter()
+            .map(|&(g, c)| g + omega.abs() * c)
+            .fold(0.0, f64::max)
     }
 
     /// A human label for unknown `i`.

@@ -272,63 +272,127 @@ pub struct Sweep {
     pub delays: Option<Vec<Vec<f64>>>,
 }
 
-/// Points per chunk handed to a worker.
-const CHUNK: usize = 512;
+/// Points per task handed to a worker.
+const TASK: usize = 512;
 
-/// Evaluates every response at every grid point in parallel (or on this thread). Stops at the
-/// lowest frequency that fails and returns its error; no partial result is returned.
-pub fn run<'a>(
+/// Points per chunk of [`run_chunks`]: large enough to keep both cores busy, small enough to
+/// keep memory flat (about 2 MB of results per response).
+pub const CHUNK_POINTS: usize = 1 << 16;
+
+/// One chunk of a sweep: points `offset .. offset + freqs.len()`, by column.
+#[derive(Clone, Copy, Debug)]
+pub struct Chunk<'s> {
+    /// Index of the chunk's first point in the grid.
+    pub offset: usize,
+    /// The chunk's frequencies (Hz).
+    pub freqs: &'s [Hertz],
+    /// One column per response.
+    pub values: &'s [Vec<num_complex::Complex64>],
+    /// One column of group delays (s) per response, when derivatives were requested.
+    pub delays: Option<&'s [Vec<f64>]>,
+}
+
+/// Evaluates the grid chunk by chunk (each chunk in parallel) and hands every chunk, in
+/// order, to `sink`; memory stays bounded by one chunk whatever the grid's size. Stops at
+/// the first failure: the lowest failing frequency's error, or the sink's own error.
+pub fn run_chunks<'a, E: From<AnalysisError>>(
     ev: &Evaluator<'a>,
     grid: &Grid,
     opts: &SweepOptions,
-) -> Result<Sweep, AnalysisError> {
+    chunk_points: usize,
+    mut sink: impl FnMut(Chunk<'_>) -> Result<(), E>,
+) -> Result<(), E> {
     let n = grid.len();
     let nr = ev.analysis().responses().len();
     if grid.has_dc() {
         ev.analysis().check_dc()?;
     }
-    let mut flat = vec![Point::default(); n * nr];
-    let work = |ws: &mut crate::response::Workspace<'a>, (ci, chunk): (usize, &mut [Point])| {
-        let first = ci * CHUNK;
-        for (j, out) in chunk.chunks_mut(nr.max(1)).enumerate() {
-            let f = grid.at(first + j);
-            let pts = ev.at(ws, f, opts.derivatives)?;
-            out.copy_from_slice(pts);
+    let chunk_points = chunk_points.max(1);
+    let width = nr.max(1);
+    let mut flat = vec![Point::default(); chunk_points.min(n) * width];
+    let mut freqs = Vec::with_capacity(chunk_points.min(n));
+    let mut values = vec![Vec::with_capacity(chunk_points.min(n)); nr];
+    let mut delays = opts
+        .derivatives
+        .then(|| vec![Vec::with_capacity(chunk_points.min(n)); nr]);
+    let mut offset = 0;
+    while offset < n {
+        let len = chunk_points.min(n - offset);
+        let flat = &mut flat[..len * width];
+        let work = |ws: &mut crate::response::Workspace<'a>, (ti, task): (usize, &mut [Point])| {
+            let first = offset + ti * TASK;
+            for (j, out) in task.chunks_mut(width).enumerate() {
+                let pts = ev.at(ws, grid.at(first + j), opts.derivatives)?;
+                out.copy_from_slice(pts);
+            }
+            Ok::<(), AnalysisError>(())
+        };
+        let results: Vec<Result<(), AnalysisError>> = if opts.sequential {
+            let mut ws = ev.workspace();
+            flat.chunks_mut(TASK * width)
+                .enumerate()
+                .map(|t| work(&mut ws, t))
+                .collect()
+        } else {
+            flat.par_chunks_mut(TASK * width)
+                .enumerate()
+                .map_init(|| ev.workspace(), work)
+                .collect()
+        };
+        if let Some(err) = results.into_iter().find_map(Result::err) {
+            return Err(err.into());
         }
-        Ok::<(), AnalysisError>(())
-    };
-    let step = CHUNK * nr.max(1);
-    let results: Vec<Result<(), AnalysisError>> = if opts.sequential {
-        let mut ws = ev.workspace();
-        flat.chunks_mut(step)
-            .enumerate()
-            .map(|c| work(&mut ws, c))
-            .collect()
-    } else {
-        flat.par_chunks_mut(step)
-            .enumerate()
-            .map_init(|| ev.workspace(), work)
-            .collect()
-    };
-    if let Some(err) = results.into_iter().find_map(Result::err) {
-        return Err(err);
-    }
-    let freqs = grid.points();
-    let mut values = vec![Vec::with_capacity(n); nr];
-    let mut delays = opts.derivatives.then(|| vec![Vec::with_capacity(n); nr]);
-    for row in flat.chunks(nr.max(1)) {
-        for (r, p) in row.iter().enumerate() {
-            values[r].push(p.value);
-            if let Some(d) = delays.as_mut() {
-                d[r].push(p.group_delay());
+        freqs.clear();
+        freqs.extend((offset..offset + len).map(|k| grid.at(k)));
+        for (r, col) in values.iter_mut().enumerate() {
+            col.clear();
+            col.extend(flat.chunks(width).map(|row| row[r].value));
+        }
+        if let Some(d) = delays.as_mut() {
+            for (r, col) in d.iter_mut().enumerate() {
+                col.clear();
+                col.extend(flat.chunks(width).map(|row| row[r].group_delay()));
             }
         }
+        sink(Chunk {
+            offset,
+            freqs: &freqs,
+            values: &values,
+            delays: delays.as_deref(),
+        })?;
+        offset += len;
     }
-    Ok(Sweep {
-        freqs,
-        values,
-        delays,
-    })
+    Ok(())
+}
+
+/// Evaluates every response at every grid point in parallel (or on this thread) and keeps
+/// the whole result. Stops at the lowest frequency that fails and returns its error; no
+/// partial result is returned. For very large grids prefer [`run_chunks`].
+pub fn run<'a>(
+    ev: &Evaluator<'a>,
+    grid: &Grid,
+    opts: &SweepOptions,
+) -> Result<Sweep, AnalysisError> {
+    let nr = ev.analysis().responses().len();
+    let n = grid.len();
+    let mut out = Sweep {
+        freqs: Vec::with_capacity(n),
+        values: vec![Vec::with_capacity(n); nr],
+        delays: opts.derivatives.then(|| vec![Vec::with_capacity(n); nr]),
+    };
+    run_chunks(ev, grid, opts, CHUNK_POINTS, |c: Chunk<'_>| {
+        out.freqs.extend_from_slice(c.freqs);
+        for (dst, src) in out.values.iter_mut().zip(c.values) {
+            dst.extend_from_slice(src);
+        }
+        if let (Some(dst), Some(src)) = (out.delays.as_mut(), c.delays) {
+            for (d, s) in dst.iter_mut().zip(src) {
+                d.extend_from_slice(s);
+            }
+        }
+        Ok::<(), AnalysisError>(())
+    })?;
+    Ok(out)
 }
 
 #[cfg(test)]

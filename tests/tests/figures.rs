@@ -9,7 +9,8 @@ use std::f64::consts::PI;
 fn figures_of(a: &Analysis, grid: &Grid, i: usize, opts: &MetricOptions) -> metrics::Figures {
     let ev = a.evaluator().unwrap();
     let s = sweep::run(&ev, grid, &SweepOptions::default()).unwrap();
-    metrics::figures(&ev, &s, i, opts).unwrap()
+    let trace = metrics::Trace::from_values(&s.values[i], None);
+    metrics::figures(&ev, grid, &trace, i, opts).unwrap()
 }
 
 fn series_rlc(r: f64, l: f64, c: f64) -> Analysis {
