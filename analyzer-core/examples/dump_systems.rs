@@ -10,7 +10,10 @@ use std::io::Write;
 fn main() -> std::io::Result<()> {
     let dir = std::env::args().nth(1).unwrap_or_else(|| "systems".into());
     std::fs::create_dir_all(&dir)?;
-    let mut nets = vec![("u3".to_string(), rlc_ladder(0, 1.0, 1.0, 1.0, 50.0, 50.0).map_err(std::io::Error::other)?)];
+    let mut nets = vec![(
+        "u3".to_string(),
+        rlc_ladder(0, 1.0, 1.0, 1.0, 50.0, 50.0).map_err(std::io::Error::other)?,
+    )];
     for order in [1, 5, 13, 29] {
         let (net, _) = butterworth_ladder(order, 50.0, 1e3).map_err(std::io::Error::other)?;
         let n = System::assemble(&net).n;

@@ -9,7 +9,10 @@ use analyzer_core::units::format_eng;
 use std::time::Instant;
 
 fn main() -> Result<(), Box<dyn std::error::Error>> {
-    let sections: usize = std::env::args().nth(1).and_then(|s| s.parse().ok()).unwrap_or(100_000);
+    let sections: usize = std::env::args()
+        .nth(1)
+        .and_then(|s| s.parse().ok())
+        .unwrap_or(100_000);
     let t = Instant::now();
     // Each section: 0.1 mΩ and 10 nH in series, 10 pF to ground. 100,000 of them make a
     // slightly lossy line of √(L/C) ≈ 31.6 Ω and about 31.6 µs delay, between 50 Ω ends:
@@ -28,10 +31,20 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     let t = Instant::now();
     let s = sweep::run(&ev, &grid, &SweepOptions::default())?;
     let dt = t.elapsed().as_secs_f64();
-    println!("{} points in {:.2} s ({:.1} ms per point)", grid.len(), dt, dt / grid.len() as f64 * 1e3);
+    println!(
+        "{} points in {:.2} s ({:.1} ms per point)",
+        grid.len(),
+        dt,
+        dt / grid.len() as f64 * 1e3
+    );
     for k in (0..grid.len()).step_by(10) {
         let h = s.values[0][k];
-        println!("  {:>12}  {:8.3} dB  {:10.1}°", format_eng(s.freqs[k], 4, "Hz"), 20.0 * h.norm().log10(), h.arg().to_degrees());
+        println!(
+            "  {:>12}  {:8.3} dB  {:10.1}°",
+            format_eng(s.freqs[k], 4, "Hz"),
+            20.0 * h.norm().log10(),
+            h.arg().to_degrees()
+        );
     }
     Ok(())
 }

@@ -25,14 +25,17 @@ use faer::{c64, Conj, MatMut, Par};
 use num_complex::Complex64;
 use std::sync::Arc;
 
-/// Largest system the stack kernel serves. Crossover measured with
-/// `cargo bench -p analyzer-core --bench solve` (see DEVELOPERS.md): the stack kernel is
-/// faster than faer's dense LU up to at least 16 unknowns on this machine.
+/// Largest system the stack kernel serves. Measured with
+/// `cargo bench -p analyzer-core --bench solve` on the 2-core CI machine, factor + solve per
+/// point: 9 unknowns 0.50 µs (sparse 1.04, dense 1.37), 13 unknowns 1.28 µs (sparse 1.64),
+/// 15 unknowns 1.44 µs (sparse 2.12); at 17 the sparse path takes 1.68 µs and dense 3.15.
 pub const SMALL_MAX: usize = 16;
 
-/// Largest system the dense faer path serves under [`SolverKind::Auto`]; above it the sparse
-/// path is used. Networks are sparse (a few entries per row), so sparse LU wins early.
-pub const DENSE_MAX: usize = 48;
+/// Largest system the dense faer path serves under [`SolverKind::Auto`]. Networks are sparse
+/// (a few entries per row): faer's sparse LU beat its dense LU at 17 unknowns (1.68 µs vs
+/// 3.15 µs per factor + solve) and at 33 (3.9 µs vs 12.9 µs), so Auto goes from the stack
+/// kernel straight to the sparse path. The dense path stays available as an override.
+pub const DENSE_MAX: usize = SMALL_MAX;
 
 /// Which solver path to use.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]

@@ -272,8 +272,11 @@ pub struct Sweep {
     pub delays: Option<Vec<Vec<f64>>>,
 }
 
-/// Points per task handed to a worker.
-const TASK: usize = 512;
+/// Points per task handed to a worker: many for tiny systems (so scheduling costs nothing),
+/// one for large ones (so both workers are busy even on a short sweep).
+fn task_points(unknowns: usize) -> usize {
+    (4096 / unknowns.max(1)).clamp(1, 512)
+}
 
 /// Points per chunk of [`run_chunks`]: large enough to keep both cores busy, small enough to
 /// keep memory flat (about 2 MB of results per response).
@@ -315,13 +318,14 @@ pub fn run_chunks<'a, E: From<AnalysisError>>(
     let mut delays = opts
         .derivatives
         .then(|| vec![Vec::with_capacity(chunk_points.min(n)); nr]);
+    let task = task_points(ev.analysis().system().n);
     let mut offset = 0;
     while offset < n {
         let len = chunk_points.min(n - offset);
         let flat = &mut flat[..len * width];
-        let work = |ws: &mut crate::response::Workspace<'a>, (ti, task): (usize, &mut [Point])| {
-            let first = offset + ti * TASK;
-            for (j, out) in task.chunks_mut(width).enumerate() {
+        let work = |ws: &mut crate::response::Workspace<'a>, (ti, slot): (usize, &mut [Point])| {
+            let first = offset + ti * task;
+            for (j, out) in slot.chunks_mut(width).enumerate() {
                 let pts = ev.at(ws, grid.at(first + j), opts.derivatives)?;
                 out.copy_from_slice(pts);
             }
@@ -329,12 +333,12 @@ pub fn run_chunks<'a, E: From<AnalysisError>>(
         };
         let results: Vec<Result<(), AnalysisError>> = if opts.sequential {
             let mut ws = ev.workspace();
-            flat.chunks_mut(TASK * width)
+            flat.chunks_mut(task * width)
                 .enumerate()
                 .map(|t| work(&mut ws, t))
                 .collect()
         } else {
-            flat.par_chunks_mut(TASK * width)
+            flat.par_chunks_mut(task * width)
                 .enumerate()
                 .map_init(|| ev.workspace(), work)
                 .collect()
