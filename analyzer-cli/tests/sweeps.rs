@@ -229,3 +229,46 @@ fn a_failed_limit_exits_one_and_still_writes_the_outputs() {
         .contains("alias_band        gain ≤ -40 dB over 50.000 kHz … 1.0000 MHz: FAIL"));
     assert!(tmp.path().join("o/gain.csv").exists());
 }
+
+#[test]
+fn an_unwritable_output_exits_three_and_leaves_nothing() {
+    let tmp = tempfile::tempdir().unwrap();
+    // A directory cannot be made below a plain file.
+    let blocker = tmp.path().join("plain-file");
+    std::fs::write(&blocker, "x").unwrap();
+    let good = root().join("sweeps/soil-probe-antialias.toml");
+    let out = Command::cargo_bin("analyzer")
+        .unwrap()
+        .args(["sweep", good.to_str().unwrap(), "-o"])
+        .arg(blocker.join("out"))
+        .assert()
+        .code(3);
+    let stderr = String::from_utf8_lossy(&out.get_output().stderr).to_string();
+    assert!(stderr.starts_with("error: "), "{stderr}");
+    assert!(stderr.contains("plain-file"), "{stderr}");
+    assert_eq!(std::fs::read_to_string(&blocker).unwrap(), "x");
+}
+
+#[test]
+fn check_summarises_a_design() {
+    let good = root().join("sweeps/vibration-bandpass.toml");
+    let out = Command::cargo_bin("analyzer")
+        .unwrap()
+        .args(["check", good.to_str().unwrap()])
+        .assert()
+        .success();
+    let text = String::from_utf8_lossy(&out.get_output().stdout).to_string();
+    assert!(
+        text.contains("Band-pass for a pump-bearing vibration sensor"),
+        "{text}"
+    );
+    assert!(
+        text.contains("9 parts, 6 nodes besides gnd, 9 unknowns"),
+        "{text}"
+    );
+    assert!(text.contains("responses: gain, zin"), "{text}");
+    assert!(
+        text.contains("sweep: 1.0000 Hz … 100.00 kHz, 501 points, log"),
+        "{text}"
+    );
+}

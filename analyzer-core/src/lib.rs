@@ -42,6 +42,11 @@
 //! # Ok::<(), Box<dyn std::error::Error>>(())
 //! ```
 #![deny(missing_docs)]
+// No unwrap, expect or explicit panic in library code: failures are values (tests may unwrap).
+#![cfg_attr(
+    not(test),
+    deny(clippy::unwrap_used, clippy::expect_used, clippy::panic)
+)]
 
 pub mod design;
 pub mod export;

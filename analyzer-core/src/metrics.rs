@@ -583,7 +583,10 @@ pub fn figures(
         Reference::Absolute => (0.0, None),
         Reference::AtFrequency(f) => (probe.db(f)?, Some(f)),
         Reference::PassbandMaximum => {
-            let kmax = usable().max_by(|&a, &b| db[a].total_cmp(&db[b]));
+            // The first point within rounding (1e-9 dB) of the largest, so a flat passband
+            // is referred to its start rather than to wherever rounding peaks.
+            let top = usable().map(|k| db[k]).fold(f64::NEG_INFINITY, f64::max);
+            let kmax = usable().find(|&k| db[k] >= top - 1e-9);
             match kmax {
                 None => (0.0, None),
                 Some(k) => match peaks.iter().find(|p| p.magnitude_db >= db[k]) {
