@@ -397,9 +397,17 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
     if !to_stdout && !args.no_plot {
         let title = &analysis.network().title;
         for (i, spec) in specs.iter().enumerate() {
-            let svg = output::svg(title, spec, &grid, &traces[i], &figures[i], !args.wrapped)?;
             let path = out_dir.join(format!("{}.svg", output::safe_file_name(&spec.name)));
-            staging.bytes(&path, svg.as_bytes())?;
+            match output::svg(title, spec, &grid, &traces[i], &figures[i], !args.wrapped)? {
+                Some(svg) => staging.bytes(&path, svg.as_bytes())?,
+                None if !args.quiet => {
+                    eprintln!(
+                        "note: no plot of {}: the sweep has no frequency above 0 Hz",
+                        spec.name
+                    )
+                }
+                None => {}
+            }
         }
     }
     let json_text = args

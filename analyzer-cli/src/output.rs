@@ -134,7 +134,8 @@ fn short(f: f64) -> String {
     format_eng(f, 4, "Hz")
 }
 
-/// The SVG Bode plot of one response, with its figures marked.
+/// The SVG Bode plot of one response, with its figures marked; None when the sweep has no
+/// frequency above 0 Hz to put on a log axis.
 pub fn svg(
     title: &str,
     spec: &ResponseSpec,
@@ -142,8 +143,12 @@ pub fn svg(
     trace: &Trace,
     figures: &Figures,
     unwrap: bool,
-) -> Result<String, Failure> {
+) -> Result<Option<String>, Failure> {
     let n = grid.len().min(trace.db.len());
+    // 0 Hz (allowed in list and linear sweeps) has no place on a log axis.
+    let Some(first) = (0..n).map(|k| grid.at(k)).find(|f| *f > 0.0) else {
+        return Ok(None);
+    };
     let wrap = |p: f64| {
         if unwrap {
             p
@@ -231,9 +236,11 @@ pub fn svg(
     }
     let input = PlotInput {
         title: format!("{title} — {}", spec.name),
-        range: grid.bounds(),
+        range: (first, grid.bounds().1),
         panels,
         markers: &markers,
     };
-    export::render_svg(&input).map_err(|e| Failure::input(format!("response {}: {e}", spec.name)))
+    export::render_svg(&input)
+        .map(Some)
+        .map_err(|e| Failure::input(format!("response {}: {e}", spec.name)))
 }

@@ -313,7 +313,7 @@ pub fn run_chunks<'a, E: From<AnalysisError>>(
     let chunk_points = chunk_points.max(1);
     let width = nr.max(1);
     let mut flat = vec![Point::default(); chunk_points.min(n) * width];
-    let mut freqs = Vec::with_capacity(chunk_points.min(n));
+    let mut freqs = vec![0.0; chunk_points.min(n)];
     let mut values = vec![Vec::with_capacity(chunk_points.min(n)); nr];
     let mut delays = opts
         .derivatives
