@@ -3,7 +3,9 @@
 //! `tests/reference/make_fixtures.py`). This file holds the helpers the checks share.
 
 use analyzer_core::design;
+use analyzer_core::network::{Network, NodeId, PartId, PartKind};
 use analyzer_core::response::{Analysis, Point};
+use analyzer_core::stamp::System;
 use analyzer_core::sweep::{self, Grid, Sweep, SweepOptions};
 use num_complex::Complex64;
 
@@ -79,4 +81,44 @@ pub fn ladder_design(title: &str, g: &[f64], r0: f64, rload: f64, fc: f64) -> St
     s += &format!("RL = {{ resistor = {rload:e}, between = [\"n{node}\", \"gnd\"] }}\n");
     s += &format!("[responses]\ngain = {{ ratio = [\"n{node}\", \"src\"] }}\n");
     s
+}
+
+/// Every part as branches (first node, second node, current flowing through it from the
+/// first to the second) on solution `x` at angular frequency `w`: two-terminal parts and
+/// source outputs as they are, a cccs with its controlled current, an op-amp output as a
+/// branch from gnd into its output node. Controlled sources' sensing ports carry no current.
+pub fn branches(
+    net: &Network,
+    sys: &System,
+    x: &[Complex64],
+    w: f64,
+) -> Vec<(NodeId, NodeId, Complex64)> {
+    let current = |id: PartId| sys.current_readout(net, id).map(|r| r.eval(x, w, true));
+    let mut out = Vec::new();
+    for (k, p) in net.parts().iter().enumerate() {
+        let id = PartId(k);
+        let branch = match p.kind {
+            PartKind::Resistor { a, b, .. }
+            | PartKind::Capacitor { a, b, .. }
+            | PartKind::Inductor { a, b, .. } => current(id).map(|i| (a, b, i)),
+            PartKind::VoltageSource { plus, minus, .. }
+            | PartKind::Vcvs { plus, minus, .. }
+            | PartKind::Ccvs { plus, minus, .. } => current(id).map(|i| (plus, minus, i)),
+            PartKind::CurrentSource { from, to, .. } | PartKind::Vccs { from, to, .. } => {
+                current(id).map(|i| (from, to, i))
+            }
+            PartKind::Cccs {
+                from,
+                to,
+                control,
+                gain,
+            } => current(control).map(|i| (from, to, i * gain)),
+            PartKind::IdealOpamp { output, .. } | PartKind::SinglePoleOpamp { output, .. } => {
+                current(id).map(|i| (NodeId::GROUND, output, i))
+            }
+            PartKind::Coupling { .. } => None,
+        };
+        out.extend(branch);
+    }
+    out
 }

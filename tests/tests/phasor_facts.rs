@@ -1,7 +1,6 @@
 //! The facts the phasor method rests on (common practice, any circuit-theory text):
 //! element impedances, their phase, and Kirchhoff's laws on solved networks.
 
-use analyzer_core::network::PartKind;
 use num_complex::Complex64;
 use reference_suite::{analysis, at};
 use std::f64::consts::PI;
@@ -92,46 +91,10 @@ fn currents_into_every_node_sum_to_zero() {
         let w = 2.0 * PI * f;
         let mut sum = vec![Complex64::new(0.0, 0.0); net.node_count()];
         let mut scale = vec![0.0f64; net.node_count()];
-        let mut add = |node: usize, i: Complex64| {
-            sum[node] += i;
-            scale[node] = scale[node].max(i.norm());
-        };
-        for (k, p) in net.parts().iter().enumerate() {
-            let id = analyzer_core::network::PartId(k);
-            // Current through the part from its first to its second node.
-            let ends = match p.kind {
-                PartKind::Resistor { a, b, .. }
-                | PartKind::Capacitor { a, b, .. }
-                | PartKind::Inductor { a, b, .. } => Some((a, b)),
-                PartKind::VoltageSource { plus, minus, .. }
-                | PartKind::Vcvs { plus, minus, .. }
-                | PartKind::Ccvs { plus, minus, .. } => Some((plus, minus)),
-                PartKind::CurrentSource { from, to, .. } | PartKind::Vccs { from, to, .. } => {
-                    Some((from, to))
-                }
-                _ => None,
-            };
-            if let Some((a, b)) = ends {
-                let i = sys.current_readout(net, id).unwrap().eval(&x, w, true);
-                add(a.0, -i);
-                add(b.0, i);
-            }
-            match p.kind {
-                PartKind::Cccs {
-                    from,
-                    to,
-                    control,
-                    gain,
-                } => {
-                    let i = sys.current_readout(net, control).unwrap().eval(&x, w, true) * gain;
-                    add(from.0, -i);
-                    add(to.0, i);
-                }
-                PartKind::IdealOpamp { output, .. } | PartKind::SinglePoleOpamp { output, .. } => {
-                    let i = sys.current_readout(net, id).unwrap().eval(&x, w, true);
-                    add(output.0, i);
-                }
-                _ => {}
+        for (a, b, i) in reference_suite::branches(net, sys, &x, w) {
+            for (node, flow) in [(a.0, -i), (b.0, i)] {
+                sum[node] += flow;
+                scale[node] = scale[node].max(flow.norm());
             }
         }
         for n in 1..net.node_count() {

@@ -4,7 +4,7 @@
 //! positive real part of passive driving-point impedances, and Tellegen's theorem; plus the
 //! project's own promise that a parallel sweep gives the same bits as a sequential one.
 
-use analyzer_core::network::{Network, NetworkBuilder, NodeId, PartId, PartKind};
+use analyzer_core::network::{Network, NetworkBuilder, NodeId};
 use analyzer_core::response::{Analysis, Probe, ResponseKind, ResponseSpec};
 use analyzer_core::stamp::System;
 use analyzer_core::sweep::{self, Grid, SweepOptions};
@@ -111,39 +111,6 @@ fn elements() -> impl Strategy<Value = Vec<Element>> {
     prop::collection::vec((0u8..7, 0usize..8, 0usize..8, 0.0f64..1.0), 1..14)
 }
 
-/// Branches (first node, second node, current) of every part for Tellegen's theorem.
-fn branches(
-    net: &Network,
-    sys: &System,
-    x: &[Complex64],
-    w: f64,
-) -> Vec<(NodeId, NodeId, Complex64)> {
-    let mut out = Vec::new();
-    for (k, p) in net.parts().iter().enumerate() {
-        let id = PartId(k);
-        let i = |id| sys.current_readout(net, id).map(|r| r.eval(x, w, true));
-        match p.kind {
-            PartKind::Resistor { a, b, .. }
-            | PartKind::Capacitor { a, b, .. }
-            | PartKind::Inductor { a, b, .. } => out.push((a, b, i(id).unwrap())),
-            PartKind::VoltageSource { plus, minus, .. }
-            | PartKind::Vcvs { plus, minus, .. }
-            | PartKind::Ccvs { plus, minus, .. } => out.push((plus, minus, i(id).unwrap())),
-            PartKind::CurrentSource { from, to, .. } | PartKind::Vccs { from, to, .. } => {
-                out.push((from, to, i(id).unwrap()))
-            }
-            PartKind::Cccs {
-                from,
-                to,
-                control,
-                gain,
-            } => out.push((from, to, i(control).unwrap() * gain)),
-            _ => {}
-        }
-    }
-    out
-}
-
 fn solution(a: &Analysis, f: f64) -> Vec<Complex64> {
     let ev = a.evaluator().unwrap();
     let mut ws = ev.workspace();
@@ -181,7 +148,7 @@ proptest! {
         if ev.at(&mut ws, f, false).is_err() { return Ok(()) }
         let x = ev.design_solution(&ws).unwrap().to_vec();
         let w = 2.0 * PI * f;
-        let br = branches(&net, a.system(), &x, w);
+        let br = reference_suite::branches(&net, a.system(), &x, w);
         let volt = |n: NodeId| System::node_index(n).map_or(Complex64::new(0.0, 0.0), |i| x[i]);
         // KCL: at each node the currents leaving through its branches sum to zero, relative to
         // the largest current in the network (rounding is relative to that, not to a node
