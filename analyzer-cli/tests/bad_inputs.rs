@@ -132,6 +132,24 @@ fn bad_arguments_give_their_message() {
         assert_eq!(&stderr, expected, "args {args:?}");
         assert!(!out.exists());
     }
+    // A design file over the 64 MiB limit is refused before it is read (a sparse file).
+    let big = tmp.path().join("huge.toml");
+    std::fs::File::create(&big)
+        .unwrap()
+        .set_len(65 * 1024 * 1024)
+        .unwrap();
+    let assert = analyzer()
+        .args(["sweep", big.to_str().unwrap(), "-o", &out_s])
+        .assert()
+        .code(2);
+    let stderr = String::from_utf8_lossy(&assert.get_output().stderr).to_string();
+    assert_eq!(
+        stderr,
+        format!(
+            "error: {}: the file is 68157440 bytes, more than the limit of 64 MiB for a design\n",
+            big.display()
+        )
+    );
     // Usage errors come from the argument parser, also with exit code 2.
     for args in [
         &["sweep"][..],

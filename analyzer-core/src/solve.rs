@@ -549,6 +549,72 @@ mod tests {
         }
     }
 
+    /// A network with exactly `n` unknowns (all node voltages): a current source into node
+    /// 1, a chain of resistors and capacitors, and a capacitor and resistor to ground at
+    /// every node, with values that vary so pivoting has work to do.
+    fn chain(n: usize) -> System {
+        let mut b = NetworkBuilder::new("chain");
+        b.current_source("I1", "gnd", "n1", Complex64::new(1e-3, 2e-4))
+            .unwrap();
+        for k in 1..=n {
+            let node = format!("n{k}");
+            b.resistor(&format!("Rg{k}"), &node, "gnd", 100.0 * (1.0 + k as f64))
+                .unwrap();
+            b.capacitor(
+                &format!("Cg{k}"),
+                &node,
+                "gnd",
+                1e-9 * (1.0 + (k % 3) as f64),
+            )
+            .unwrap();
+            if k > 1 {
+                let prev = format!("n{}", k - 1);
+                b.resistor(&format!("R{k}"), &prev, &node, 50.0 * k as f64)
+                    .unwrap();
+                b.capacitor(&format!("C{k}"), &prev, &node, 2e-9 / k as f64)
+                    .unwrap();
+            }
+        }
+        System::assemble(&b.build().unwrap())
+    }
+
+    /// The stack kernel against faer's dense and sparse LU on every size it serves.
+    #[test]
+    fn small_kernel_matches_faer_on_every_size_it_serves() {
+        for n in 1..=SMALL_MAX {
+            let sys = chain(n);
+            assert_eq!(sys.n, n);
+            assert_eq!(SolverKind::Auto.resolve(n), SolverKind::Small);
+            let mut results = Vec::new();
+            for kind in [SolverKind::Small, SolverKind::Dense, SolverKind::Sparse] {
+                let plan = SolverPlan::new(&sys, kind).unwrap();
+                assert_eq!(plan.kind(), kind);
+                let mut s = plan.make();
+                let omega = 2.0 * std::f64::consts::PI * 7.3e4;
+                s.factor(omega).unwrap();
+                let mut x = sys.b.clone();
+                solve_checked(
+                    s.as_mut(),
+                    &sys,
+                    omega,
+                    &mut x,
+                    &mut CheckScratch::default(),
+                )
+                .unwrap();
+                results.push(x);
+            }
+            for other in &results[1..] {
+                for (a, b) in results[0].iter().zip(other) {
+                    assert!(
+                        (a - b).norm() <= 1e-12 * a.norm().max(1e-30),
+                        "n = {n}: {a} vs {b}"
+                    );
+                }
+            }
+        }
+        assert_eq!(SolverKind::Auto.resolve(SMALL_MAX + 1), SolverKind::Sparse);
+    }
+
     #[test]
     fn zero_pivot_names_the_column() {
         let mut b = NetworkBuilder::new("t");
