@@ -100,6 +100,11 @@ fn ladders(c: &mut Criterion) {
         g.bench_function(BenchmarkId::new("point", sections), |b| {
             b.iter(|| ev.at(&mut ws, 1e3, false).map(|p| p[0]))
         });
+        // A whole (short) sweep: 8 points, so both workers have points to solve.
+        let grid = Grid::log(1e3, 1e6, 7.0 / 3.0).unwrap();
+        g.bench_function(BenchmarkId::new("sweep-8", sections), |b| {
+            b.iter(|| sweep::run(&ev, &grid, &SweepOptions::default()).unwrap())
+        });
     }
     g.finish();
 }

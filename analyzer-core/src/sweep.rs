@@ -11,6 +11,7 @@
 use crate::response::{AnalysisError, Evaluator, Point};
 use crate::units::{format_eng, Hertz};
 use rayon::prelude::*;
+use std::sync::atomic::{AtomicUsize, Ordering};
 
 /// Largest number of points a grid may have.
 pub const MAX_POINTS: usize = 100_000_000;
@@ -319,35 +320,68 @@ pub fn run_chunks<'a, E: From<AnalysisError>>(
         .derivatives
         .then(|| vec![Vec::with_capacity(chunk_points.min(n)); nr]);
     let task = task_points(ev.analysis().system().n);
+    // One workspace per worker for the whole run (a large system's workspace is costly to
+    // make); workers take tasks from a shared counter, so the load balances itself.
+    let workers = if opts.sequential {
+        1
+    } else {
+        rayon::current_num_threads().max(1)
+    };
+    let mut pool: Vec<crate::response::Workspace<'a>> =
+        (0..workers).map(|_| ev.workspace()).collect();
     let mut offset = 0;
     while offset < n {
         let len = chunk_points.min(n - offset);
-        let flat = &mut flat[..len * width];
-        let work = |ws: &mut crate::response::Workspace<'a>, (ti, slot): (usize, &mut [Point])| {
-            let first = offset + ti * task;
-            for (j, out) in slot.chunks_mut(width).enumerate() {
-                let pts = ev.at(ws, grid.at(first + j), opts.derivatives)?;
-                out.copy_from_slice(pts);
+        freqs.resize(chunk_points.min(n), 0.0);
+        let tasks = len.div_ceil(task);
+        let next = AtomicUsize::new(0);
+        let worker = |ws: &mut crate::response::Workspace<'a>| {
+            let mut done = Vec::new();
+            loop {
+                let t = next.fetch_add(1, Ordering::Relaxed);
+                if t >= tasks {
+                    return (done, None);
+                }
+                let first = offset + t * task;
+                let count = task.min(offset + len - first);
+                let mut pts = Vec::with_capacity(count * width);
+                let mut fs = Vec::with_capacity(count);
+                for k in first..first + count {
+                    let f = grid.at(k);
+                    match ev.at(ws, f, opts.derivatives) {
+                        Ok(p) => pts.extend_from_slice(p),
+                        Err(e) => return (done, Some((t, e))),
+                    }
+                    fs.push(f);
+                }
+                done.push((t, pts, fs));
             }
-            Ok::<(), AnalysisError>(())
         };
-        let results: Vec<Result<(), AnalysisError>> = if opts.sequential {
-            let mut ws = ev.workspace();
-            flat.chunks_mut(task * width)
-                .enumerate()
-                .map(|t| work(&mut ws, t))
-                .collect()
+        let results: Vec<_> = if workers == 1 {
+            pool.iter_mut().map(worker).collect()
         } else {
-            flat.par_chunks_mut(task * width)
-                .enumerate()
-                .map_init(|| ev.workspace(), work)
-                .collect()
+            pool.par_iter_mut().map(worker).collect()
         };
-        if let Some(err) = results.into_iter().find_map(Result::err) {
-            return Err(err.into());
+        // Every task below the lowest failing one was handed out before it, so the lowest
+        // failing task is the lowest failing frequency whatever the timing.
+        let mut first_error: Option<(usize, AnalysisError)> = None;
+        for (done, err) in results {
+            if let Some((t, e)) = err {
+                if first_error.as_ref().is_none_or(|(u, _)| t < *u) {
+                    first_error = Some((t, e));
+                }
+            }
+            for (t, pts, fs) in done {
+                let at = t * task;
+                flat[at * width..at * width + pts.len()].copy_from_slice(&pts);
+                freqs[at..at + fs.len()].copy_from_slice(&fs);
+            }
         }
-        freqs.clear();
-        freqs.extend((offset..offset + len).map(|k| grid.at(k)));
+        if let Some((_, e)) = first_error {
+            return Err(e.into());
+        }
+        let flat = &flat[..len * width];
+        freqs.truncate(len);
         for (r, col) in values.iter_mut().enumerate() {
             col.clear();
             col.extend(flat.chunks(width).map(|row| row[r].value));
