@@ -27,6 +27,8 @@ pub enum Grid {
         to: Hertz,
         /// Number of intervals.
         intervals: usize,
+        /// ln(to/from)/intervals, kept so point k costs one exp.
+        ln_step: f64,
     },
     /// Linearly spaced.
     Linear {
@@ -124,10 +126,16 @@ impl Grid {
                 points: intervals + 1.0,
             });
         }
+        let intervals = intervals as usize;
         Ok(Grid::Log {
             from,
             to,
-            intervals: intervals as usize,
+            intervals,
+            ln_step: if intervals == 0 {
+                0.0
+            } else {
+                (to / from).ln() / intervals as f64
+            },
         })
     }
 
@@ -199,13 +207,14 @@ impl Grid {
                 from,
                 to,
                 intervals,
+                ln_step,
             } => {
                 if k == 0 {
                     from
                 } else if k >= intervals {
                     to
                 } else {
-                    from * (to / from).powf(k as f64 / intervals as f64)
+                    from * (ln_step * k as f64).exp()
                 }
             }
             Grid::Linear { from, to, points } => {
