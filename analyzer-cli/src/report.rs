@@ -107,18 +107,20 @@ pub fn table(
                 .q_bandwidth
                 .map(|q| format!(", Q {q:.4} from bandwidth"))
                 .unwrap_or_default();
+            let (of, what) = if f.unit == "S" {
+                ("Y", " (admittance)")
+            } else {
+                ("Z", "")
+            };
             row(
                 "resonance",
                 format!(
-                    "{} {} at {}: |{}| {} · Q {:.4} from phase slope{qb}",
+                    "{}{what} at {}: |{of}| {} · Q {:.4} from phase slope{qb}",
                     r.kind,
-                    if f.unit == "S" { "(admittance)" } else { "" },
                     hz(r.freq_hz),
-                    if f.unit == "S" { "Y" } else { "Z" },
                     format_eng(r.magnitude, 5, f.unit),
                     r.q_phase_slope
-                )
-                .replace("  ", " "),
+                ),
             );
         }
         if let Some(d) = f.group_delay_s {

@@ -324,9 +324,7 @@ impl Analysis {
 
     /// Runs the topology checks that apply at 0 Hz (capacitor cut-sets, inductor loops).
     pub fn check_dc(&self) -> Result<(), AnalysisError> {
-        topology::check(&self.net, true).map_err(|e| match e {
-            TopologyError::Floating { .. } | TopologyError::VoltageLoop { .. } => e.into(),
-        })
+        Ok(topology::check(&self.net, true)?)
     }
 
     /// The network.
