@@ -40,17 +40,22 @@ fn butterworth_prototype_values_match_the_table() {
     }
 }
 
-#[test]
-fn fifth_order_butterworth_ladder_matches_scipy_over_three_decades() {
-    // Fixture: scipy.signal.butter(5, 2π·1 kHz, analog=True), |H| over 31.6 Hz … 31.6 kHz.
-    // The doubly terminated ladder adds the 1/2 divider of its equal terminations.
-    let a = analysis(&ladder_design(
+/// The fifth-order ladder at 1 kHz with 50 Ω terminations, as a design file.
+fn butterworth5_1khz() -> analyzer_core::response::Analysis {
+    analysis(&ladder_design(
         "butterworth 5",
         &butterworth_g(5),
         50.0,
         50.0,
         1e3,
-    ));
+    ))
+}
+
+#[test]
+fn fifth_order_butterworth_ladder_matches_scipy_over_three_decades() {
+    // Fixture: scipy.signal.butter(5, 2π·1 kHz, analog=True), |H| over 31.6 Hz … 31.6 kHz.
+    // The doubly terminated ladder adds the 1/2 divider of its equal terminations.
+    let a = butterworth5_1khz();
     for row in fixture("butterworth5_1khz.csv") {
         let (f, mag) = (row[0], row[1]);
         let h = value(&a, 0, f).norm();
@@ -64,13 +69,7 @@ fn fifth_order_butterworth_ladder_matches_scipy_over_three_decades() {
 #[test]
 fn butterworth_group_delay_matches_the_analytic_derivative() {
     // Fixture: τ = −dφ/dω from the scipy.signal.butter polynomials, differentiated exactly.
-    let a = analysis(&ladder_design(
-        "butterworth 5",
-        &butterworth_g(5),
-        50.0,
-        50.0,
-        1e3,
-    ));
+    let a = butterworth5_1khz();
     let rows = fixture("butterworth5_1khz.csv");
     let grid = Grid::list(rows.iter().map(|r| r[0]).collect()).unwrap();
     let s = run(&a, &grid, true);
