@@ -196,6 +196,12 @@ fn run_check(path: &Path) -> Result<u8, Failure> {
     let names: Vec<String> = d.responses.iter().map(|r| r.name.clone()).collect();
     let analysis = Analysis::new(d.network, d.responses)
         .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+    // A sweep that includes 0 Hz must also pass the checks that apply there.
+    if d.sweep.grid().is_ok_and(|g| g.has_dc()) {
+        analysis
+            .check_dc()
+            .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+    }
     let net = analysis.network();
     println!("{shown}: {}", net.title);
     println!(

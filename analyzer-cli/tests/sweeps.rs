@@ -272,3 +272,18 @@ fn check_summarises_a_design() {
         "{text}"
     );
 }
+
+#[test]
+fn check_applies_the_zero_hertz_checks_when_the_sweep_includes_dc() {
+    let bad =
+        Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/bad/topology_capacitor_cutset_dc.toml");
+    let out = Command::cargo_bin("analyzer")
+        .unwrap()
+        .args(["check", bad.to_str().unwrap()])
+        .assert()
+        .code(2);
+    let o = out.get_output();
+    assert!(o.stdout.is_empty());
+    let stderr = String::from_utf8_lossy(&o.stderr).to_string();
+    assert!(stderr.ends_with(": node out has no path to gnd at 0 Hz: it is reached only through capacitor(s) C0, C1, which are open there; start the sweep above 0 Hz or add a DC path (e.g. a large resistor to gnd)\n"), "{stderr}");
+}
