@@ -200,7 +200,12 @@ proptest! {
             Some(reference_suite::value(&a, 0, f))
         };
         if let (Some(zab), Some(zba)) = (z(ia, ib), z(ib, ia)) {
-            prop_assert!((zab - zba).norm() <= 1e-9 * zab.norm().max(zba.norm()), "{zab} vs {zba}");
+            // Two separate solves compared: their forward error is bounded by the condition
+            // number times the rounding unit, and random element spreads of 10^4 per kind over
+            // 10 Hz … 10 MHz reach condition numbers near 1e8 (a failing draw at 8.8e-9 is kept
+            // in the regressions file). KCL above checks the residual, which does not depend
+            // on conditioning, at 1e-9.
+            prop_assert!((zab - zba).norm() <= 1e-7 * zab.norm().max(zba.norm()), "{zab} vs {zba}");
         }
     }
 
