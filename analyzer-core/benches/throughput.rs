@@ -10,7 +10,19 @@ use analyzer_core::solve::SolverKind;
 use analyzer_core::sweep::{self, Grid, SweepOptions};
 use std::time::Instant;
 
-fn median(mut v: Vec<f64>) -> f64 {
+/// Median wall time in seconds of `runs` runs of `f` on a pool of `threads` threads.
+fn median_secs(runs: usize, threads: usize, mut f: impl FnMut() + Send) -> f64 {
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .expect("pool");
+    let mut v: Vec<f64> = (0..runs)
+        .map(|_| {
+            let t = Instant::now();
+            pool.install(&mut f);
+            t.elapsed().as_secs_f64()
+        })
+        .collect();
     v.sort_by(f64::total_cmp);
     v[v.len() / 2]
 }
@@ -34,21 +46,10 @@ fn main() {
             analysis.system().n
         );
         for threads in [1, 2] {
-            let pool = rayon::ThreadPoolBuilder::new()
-                .num_threads(threads)
-                .build()
-                .expect("pool");
-            let times: Vec<f64> = (0..runs)
-                .map(|_| {
-                    let t = Instant::now();
-                    let s = pool
-                        .install(|| sweep::run(&ev, &grid, &SweepOptions::default()))
-                        .expect("sweep");
-                    std::hint::black_box(&s);
-                    t.elapsed().as_secs_f64()
-                })
-                .collect();
-            let t = median(times);
+            let t = median_secs(runs, threads, || {
+                let s = sweep::run(&ev, &grid, &SweepOptions::default()).expect("sweep");
+                std::hint::black_box(&s);
+            });
             println!(
                 "  solve, {threads} thread(s): {:.3} s median of {runs}, {:.2} M points/s, {:.0} ns/point",
                 t,
@@ -60,34 +61,24 @@ fn main() {
     let analysis = Analysis::new(net, vec![spec]).expect("analysis");
     let ev = analysis.evaluator().expect("evaluator");
     let s = sweep::run(&ev, &grid, &SweepOptions::default()).expect("sweep");
+    let mut out = Vec::with_capacity(points * 100);
     for threads in [1, 2] {
-        let pool = rayon::ThreadPoolBuilder::new()
-            .num_threads(threads)
-            .build()
-            .expect("pool");
-        let times: Vec<f64> = (0..runs)
-            .map(|_| {
-                let mut out = Vec::with_capacity(points * 100);
-                let t = Instant::now();
-                pool.install(|| {
-                    export::write_csv(
-                        &mut out,
-                        &s.freqs,
-                        &[Columns {
-                            name: "gain",
-                            unit: analysis.responses()[0].kind.unit(),
-                            values: &s.values[0],
-                            delay: None,
-                            unwrap: true,
-                        }],
-                    )
-                })
-                .expect("csv");
-                std::hint::black_box(&out);
-                t.elapsed().as_secs_f64()
-            })
-            .collect();
-        let t = median(times);
+        let t = median_secs(runs, threads, || {
+            out.clear();
+            export::write_csv(
+                &mut out,
+                &s.freqs,
+                &[Columns {
+                    name: "gain",
+                    unit: analysis.responses()[0].kind.unit(),
+                    values: &s.values[0],
+                    delay: None,
+                    unwrap: true,
+                }],
+            )
+            .expect("csv");
+            std::hint::black_box(&out);
+        });
         println!(
             "  CSV, {threads} thread(s): {:.0} ns/row ({:.3} s for {points} rows)",
             t / points as f64 * 1e9,

@@ -8,7 +8,7 @@
 //! shortest form that reads back to the same double (ryu), formatted in parallel blocks and
 //! written in order.
 //!
-//! Phase is unwrapped along the sweep unless asked otherwise: the first point is in
+//! Phase is unwrapped along the sweep ([`Unwrapper`]) unless asked otherwise: the first point is in
 //! (−180°, 180°], and every later point differs from the one before by at most 180°.
 
 use crate::response::ResponseUnit;
@@ -21,22 +21,6 @@ use std::io::{self, Write};
 /// Magnitude in dB of each value.
 pub fn magnitudes_db(values: &[Complex64]) -> Vec<f64> {
     values.iter().map(|v| 20.0 * v.norm().log10()).collect()
-}
-
-/// Phase in degrees of each value, unwrapped along the slice when `unwrap` is set.
-pub fn phases_deg(values: &[Complex64], unwrap: bool) -> Vec<f64> {
-    let mut u = Unwrapper::default();
-    values
-        .iter()
-        .map(|v| {
-            let p = v.arg().to_degrees();
-            if unwrap {
-                u.next(p)
-            } else {
-                p
-            }
-        })
-        .collect()
 }
 
 /// Unwraps a phase sequence point by point, so a sweep can be unwrapped chunk by chunk: the
@@ -442,7 +426,8 @@ mod tests {
             .iter()
             .map(|d| Complex64::from_polar(1.0, d.to_radians()))
             .collect();
-        let p = phases_deg(&vals, true);
+        let mut u = Unwrapper::default();
+        let p: Vec<f64> = vals.iter().map(|v| u.next(v.arg().to_degrees())).collect();
         let expect = [170.0, 190.0, 210.0, 160.0];
         for (a, b) in p.iter().zip(expect) {
             assert!((a - b).abs() < 1e-9, "{p:?}");

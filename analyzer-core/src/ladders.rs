@@ -1,7 +1,7 @@
 //! Generated networks: long ladders that stand in for a cable, an on-chip line or an RC chain,
 //! and prototype filters, built through [`NetworkBuilder`] with no design file.
 
-use crate::network::{Network, NetworkBuilder, NetworkError};
+use crate::network::{Network, NetworkBuilder, NetworkError, NodeId};
 use crate::response::{Probe, ResponseKind, ResponseSpec};
 use std::f64::consts::PI;
 
@@ -36,8 +36,8 @@ pub fn ladder_gain(net: &Network, sections: usize) -> Option<ResponseSpec> {
     Some(ResponseSpec {
         name: "gain".into(),
         kind: ResponseKind::Ratio {
-            numerator: Probe::Voltage(out, crate::network::NodeId::GROUND),
-            denominator: Probe::Voltage(src, crate::network::NodeId::GROUND),
+            numerator: Probe::Voltage(out, NodeId::GROUND),
+            denominator: Probe::Voltage(src, NodeId::GROUND),
         },
         loop_gain: false,
     })
@@ -70,11 +70,16 @@ pub fn butterworth_ladder(
             b.capacitor(&format!("C{k}"), &format!("n{node}"), "gnd", g / (r0 * wc))?;
         }
     }
-    b.resistor("RL", &format!("n{node}"), "gnd", r0)?;
+    let out = format!("n{node}");
+    b.resistor("RL", &out, "gnd", r0)?;
+    let spec = ResponseSpec {
+        name: "gain".into(),
+        kind: ResponseKind::Ratio {
+            numerator: Probe::Voltage(b.node(&out)?, NodeId::GROUND),
+            denominator: Probe::Voltage(b.node("src")?, NodeId::GROUND),
+        },
+        loop_gain: false,
+    };
     let net = b.build()?;
-    let spec = ladder_gain(&net, node).ok_or(NetworkError::TooLarge {
-        what: "nodes",
-        limit: 0,
-    })?;
     Ok((net, spec))
 }

@@ -187,7 +187,7 @@ pub fn check_limit(
     figures: &Figures,
     limit: &Limit,
 ) -> Result<LimitResult, AnalysisError> {
-    let mut probe = Probe::new(ev, index);
+    let mut probe = Refiner::new(ev, index);
     let inside = |f: f64| f >= limit.from && f <= limit.to;
     let mut worst = (f64::INFINITY, limit.from);
     let mut consider = |m: f64, f: f64| {
@@ -256,7 +256,7 @@ pub fn check_limit(
 pub struct Trace {
     /// 20·log10|H| per point.
     pub db: Vec<f64>,
-    /// Unwrapped phase in degrees per point (see [`crate::export::phases_deg`]).
+    /// Unwrapped phase in degrees per point (see [`crate::export::Unwrapper`]).
     pub phase_deg: Vec<f32>,
     /// Group delay (s) per point, if it was computed.
     pub delay_s: Option<Vec<f32>>,
@@ -455,16 +455,16 @@ pub fn brent_min<E>(
 }
 
 /// Evaluates one response at any frequency, re-solving the network.
-pub struct Probe<'e, 'a> {
+pub struct Refiner<'e, 'a> {
     ev: &'e Evaluator<'a>,
     ws: Workspace<'a>,
     index: usize,
 }
 
-impl<'e, 'a> Probe<'e, 'a> {
+impl<'e, 'a> Refiner<'e, 'a> {
     /// A probe of response `index`.
     pub fn new(ev: &'e Evaluator<'a>, index: usize) -> Self {
-        Probe {
+        Refiner {
             ev,
             ws: ev.workspace(),
             index,
@@ -542,7 +542,7 @@ pub fn figures(
     opts: &MetricOptions,
 ) -> Result<Figures, AnalysisError> {
     let spec = &ev.analysis().responses()[index];
-    let mut probe = Probe::new(ev, index);
+    let mut probe = Refiner::new(ev, index);
     let db = &trace.db;
     let n = grid.len().min(db.len());
     let freq = |k: usize| grid.at(k);
@@ -682,7 +682,7 @@ pub fn figures(
 
 /// Crossings of `level` along `pts` (frequency, dB), ascending, each refined on the network.
 fn crossings_at(
-    probe: &mut Probe<'_, '_>,
+    probe: &mut Refiner<'_, '_>,
     pts: impl Iterator<Item = (f64, f64)>,
     level: f64,
 ) -> Result<Vec<Crossing>, AnalysisError> {
@@ -739,7 +739,7 @@ fn merged<'x>(
 }
 
 fn resonances<'p, I: Iterator<Item = (f64, f64)> + 'p>(
-    probe: &mut Probe<'_, '_>,
+    probe: &mut Refiner<'_, '_>,
     phase_pts: impl Iterator<Item = (f64, f64)>,
     pts: &impl Fn() -> I,
     unit: ResponseUnit,
@@ -795,13 +795,13 @@ fn resonances<'p, I: Iterator<Item = (f64, f64)> + 'p>(
 }
 
 fn margins(
-    probe: &mut Probe<'_, '_>,
+    probe: &mut Refiner<'_, '_>,
     phase_pts: impl Iterator<Item = (f64, f64)>,
     db_pts: impl Iterator<Item = (f64, f64)>,
 ) -> Result<Margins, AnalysisError> {
     // Unwrapped phase near a grid point: the principal value moved by whole turns to lie
     // closest to the grid's unwrapped value.
-    let local_phase = |p: &mut Probe<'_, '_>, f: f64, near: f64| -> Result<f64, AnalysisError> {
+    let local_phase = |p: &mut Refiner<'_, '_>, f: f64, near: f64| -> Result<f64, AnalysisError> {
         let a = p.point(f)?.value.arg().to_degrees();
         Ok(a + 360.0 * ((near - a) / 360.0).round())
     };

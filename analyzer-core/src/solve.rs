@@ -29,13 +29,12 @@ use std::sync::Arc;
 /// `cargo bench -p analyzer-core --bench solve` on the 2-core CI machine, factor + solve per
 /// point: 9 unknowns 0.50 µs (sparse 1.04, dense 1.37), 13 unknowns 1.28 µs (sparse 1.64),
 /// 15 unknowns 1.44 µs (sparse 2.12); at 17 the sparse path takes 1.68 µs and dense 3.15.
+///
+/// Above it [`SolverKind::Auto`] goes straight to the sparse path: network matrices are
+/// sparse (a few entries per row), and faer's sparse LU beat its dense LU at 17 unknowns
+/// (1.68 µs vs 3.15 µs per factor + solve) and at 33 (3.9 µs vs 12.9 µs). The dense path
+/// stays available as an override.
 pub const SMALL_MAX: usize = 16;
-
-/// Largest system the dense faer path serves under [`SolverKind::Auto`]. Networks are sparse
-/// (a few entries per row): faer's sparse LU beat its dense LU at 17 unknowns (1.68 µs vs
-/// 3.15 µs per factor + solve) and at 33 (3.9 µs vs 12.9 µs), so Auto goes from the stack
-/// kernel straight to the sparse path. The dense path stays available as an override.
-pub const DENSE_MAX: usize = SMALL_MAX;
 
 /// Which solver path to use.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
@@ -43,7 +42,7 @@ pub enum SolverKind {
     /// Chosen by size: small kernel, dense faer, sparse faer.
     #[default]
     Auto,
-    /// The stack kernel (only up to [`SMALL_MAX`] unknowns).
+    /// The stack kernel (only up to [`SMALL_MAX`] unknowns; above, the sparse path).
     Small,
     /// faer dense LU.
     Dense,
@@ -56,9 +55,8 @@ impl SolverKind {
     pub fn resolve(self, n: usize) -> SolverKind {
         match self {
             SolverKind::Auto if n <= SMALL_MAX => SolverKind::Small,
-            SolverKind::Auto if n <= DENSE_MAX => SolverKind::Dense,
-            SolverKind::Auto => SolverKind::Sparse,
-            SolverKind::Small if n > SMALL_MAX => SolverKind::Dense,
+            // The stack kernel has no instance above SMALL_MAX; sparse is the faster fallback.
+            SolverKind::Auto | SolverKind::Small if n > SMALL_MAX => SolverKind::Sparse,
             k => k,
         }
     }
