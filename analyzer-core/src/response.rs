@@ -13,9 +13,7 @@
 //! `τ = −Im(H′/H)` (see [`Point::group_delay`]).
 
 use crate::network::{Network, NodeId, PartId, PartKind};
-use crate::solve::{
-    solve_checked, CheckScratch, PointSolver, SolveFailure, SolverKind, SolverPlan,
-};
+use crate::solve::{LaneSolver, SolveFailure, SolverKind, SolverPlan, LANES};
 use crate::stamp::{Readout, System};
 use crate::topology::{self, TopologyError};
 use crate::units::{format_eng, Hertz};
@@ -364,11 +362,22 @@ pub struct Evaluator<'a> {
 
 /// Per-thread scratch for an [`Evaluator`].
 pub struct Workspace<'a> {
-    solver: Box<dyn PointSolver + 'a>,
+    /// One frequency per pass (single points, and the fallback that names a failure).
+    one: Box<dyn LaneSolver + 'a>,
+    /// Several frequencies per pass, where the solver path has such a kernel.
+    wide: Option<Box<dyn LaneSolver + 'a>>,
+    /// Per excitation, the solutions of the current group, lane-major.
     xs: Vec<Vec<Complex64>>,
+    /// Per excitation, their ω-derivatives.
     dxs: Vec<Vec<Complex64>>,
-    check: CheckScratch,
     points: Vec<Point>,
+}
+
+/// The solver and buffers one group of frequencies is evaluated with.
+struct Group<'w, 'a> {
+    solver: &'w mut (dyn LaneSolver + 'a),
+    xs: &'w mut [Vec<Complex64>],
+    dxs: &'w mut [Vec<Complex64>],
 }
 
 impl<'a> Evaluator<'a> {
@@ -385,11 +394,14 @@ impl<'a> Evaluator<'a> {
     /// A workspace for one thread.
     pub fn workspace(&self) -> Workspace<'a> {
         let a = self.analysis;
+        let one = self.plan.make_lanes(false);
+        let wide = Some(self.plan.make_lanes(true)).filter(|w| w.lanes() > 1);
+        let lanes = wide.as_ref().map_or(1, |w| w.lanes());
         Workspace {
-            solver: self.plan.make(),
-            xs: vec![vec![Complex64::default(); a.sys.n]; a.rhs.len()],
-            dxs: vec![vec![Complex64::default(); a.sys.n]; a.rhs.len()],
-            check: CheckScratch::default(),
+            one,
+            wide,
+            xs: vec![vec![Complex64::default(); a.sys.n * lanes]; a.rhs.len()],
+            dxs: vec![vec![Complex64::default(); a.sys.n * lanes]; a.rhs.len()],
             points: vec![Point::default(); a.specs.len()],
         }
     }
@@ -402,7 +414,7 @@ impl<'a> Evaluator<'a> {
             .excitations
             .iter()
             .position(|e| *e == Excitation::Design)?;
-        ws.xs.get(e).map(Vec::as_slice)
+        ws.xs.get(e).and_then(|x| x.get(..self.analysis.sys.n))
     }
 
     /// All responses at frequency `f` (Hz), with ω-derivatives when `derivatives` is set.
@@ -414,78 +426,282 @@ impl<'a> Evaluator<'a> {
         f: Hertz,
         derivatives: bool,
     ) -> Result<&'w [Point], AnalysisError> {
+        let nr = self.analysis.specs.len();
+        ws.points.resize(nr, Point::default());
+        let mut group = Group {
+            solver: ws.one.as_mut(),
+            xs: &mut ws.xs,
+            dxs: &mut ws.dxs,
+        };
+        self.eval_group(&mut group, &[f], derivatives, &mut ws.points)?;
+        Ok(&ws.points)
+    }
+
+    /// All responses at every frequency of `freqs` (Hz): point-major, response `r` at
+    /// `freqs[k]` is element `k·R + r` for R responses. Small systems are solved several
+    /// frequencies per pass; the values are those [`Evaluator::at`] gives. Fails with the
+    /// error of the first frequency (in the order given) that fails.
+    pub fn at_many<'w>(
+        &self,
+        ws: &'w mut Workspace<'a>,
+        freqs: &[Hertz],
+        derivatives: bool,
+    ) -> Result<&'w [Point], AnalysisError> {
+        let nr = self.analysis.specs.len();
+        ws.points.resize(freqs.len() * nr, Point::default());
+        let lanes = ws.wide.as_ref().map_or(1, |w| w.lanes());
+        for (fs, out) in freqs
+            .chunks(lanes)
+            .zip(ws.points.chunks_mut(lanes * nr.max(1)))
+        {
+            if fs.len() > 1 {
+                if let Some(wide) = ws.wide.as_mut() {
+                    let mut group = Group {
+                        solver: wide.as_mut(),
+                        xs: &mut ws.xs,
+                        dxs: &mut ws.dxs,
+                    };
+                    if self.eval_group(&mut group, fs, derivatives, out).is_ok() {
+                        continue;
+                    }
+                }
+            }
+            // One at a time: the fallback that finds which frequency failed, and why.
+            for (k, &f) in fs.iter().enumerate() {
+                let mut group = Group {
+                    solver: ws.one.as_mut(),
+                    xs: &mut ws.xs,
+                    dxs: &mut ws.dxs,
+                };
+                let slot = out.get_mut(k * nr..(k + 1) * nr).unwrap_or_default();
+                self.eval_group(&mut group, &[f], derivatives, slot)?;
+            }
+        }
+        Ok(&ws.points)
+    }
+
+    /// Evaluates every response at `freqs` (at most the solver's lane count) into `out`
+    /// (point-major); fails with the first failing frequency's error.
+    fn eval_group(
+        &self,
+        g: &mut Group<'_, 'a>,
+        freqs: &[Hertz],
+        derivatives: bool,
+        out: &mut [Point],
+    ) -> Result<(), AnalysisError> {
         let a = self.analysis;
-        let omega = 2.0 * PI * f;
-        ws.solver.factor(omega).map_err(|s| {
-            let blame = a.sys.describe_unknown(&a.net, s.column);
-            let hint = if blame.contains("op-amp") {
+        let n = a.sys.n;
+        let mut omegas = [0.0; LANES];
+        let count = freqs.len().min(g.solver.lanes()).min(LANES);
+        for (w, f) in omegas.iter_mut().zip(freqs).take(count) {
+            *w = 2.0 * PI * f;
+        }
+        let omegas = &omegas[..count];
+        let freq = |lane: usize| freqs.get(lane).copied().unwrap_or(f64::NAN);
+        let singular = |lane: usize, column: usize, with_hint: bool| {
+            let blame = a.sys.describe_unknown(&a.net, column);
+            let hint = if with_hint && blame.contains("op-amp") {
                 "; give the op-amp feedback from its output to an input".to_string()
             } else {
                 String::new()
             };
             AnalysisError::Singular {
-                frequency: f,
+                frequency: freq(lane),
                 blame,
                 hint,
             }
+        };
+        g.solver.factor(omegas).map_err(|e| match e.failure {
+            SolveFailure::Singular(s) => singular(e.lane, s.column, true),
+            SolveFailure::Untrustworthy { residual } => AnalysisError::Untrustworthy {
+                frequency: freq(e.lane),
+                residual,
+            },
         })?;
         for (e, rhs) in a.rhs.iter().enumerate() {
-            let x = &mut ws.xs[e];
-            x.copy_from_slice(rhs);
-            solve_checked(ws.solver.as_mut(), &a.sys, omega, x, &mut ws.check).map_err(|fail| {
-                match fail {
-                    SolveFailure::Singular(s) => AnalysisError::Singular {
-                        frequency: f,
-                        blame: a.sys.describe_unknown(&a.net, s.column),
-                        hint: String::new(),
-                    },
+            let (Some(x), Some(dx)) = (g.xs.get_mut(e), g.dxs.get_mut(e)) else {
+                continue;
+            };
+            g.solver
+                .solve_checked(rhs, x)
+                .map_err(|e| match e.failure {
+                    SolveFailure::Singular(s) => singular(e.lane, s.column, false),
                     SolveFailure::Untrustworthy { residual } => AnalysisError::Untrustworthy {
-                        frequency: f,
+                        frequency: freq(e.lane),
                         residual,
                     },
-                }
-            })?;
+                })?;
             if derivatives {
-                // dx/dω = −A⁻¹·(jC)·x
-                let dx = &mut ws.dxs[e];
-                a.sys.multiply(omega, x, dx, true);
-                dx.iter_mut().for_each(|v| *v = -*v);
-                ws.solver.solve(dx);
+                g.solver.derivative(x, dx);
             }
         }
-        for (k, r) in a.resolved.iter().enumerate() {
-            let x = &ws.xs[r.excitation];
-            let design = a.excitations[r.excitation] == Excitation::Design;
-            let num = r.numerator.eval(x, omega, design);
-            let den = match &r.denominator {
-                Some(d) => d.eval(x, omega, design),
-                None => Complex64::new(1.0, 0.0),
+        let nr = a.specs.len();
+        for (lane, (&omega, slot)) in omegas.iter().zip(out.chunks_mut(nr.max(1))).enumerate() {
+            let span = lane * n..(lane + 1) * n;
+            for ((k, r), point) in a.resolved.iter().enumerate().zip(slot.iter_mut()) {
+                let x = g.xs[r.excitation].get(span.clone()).unwrap_or_default();
+                let dx = g.dxs[r.excitation].get(span.clone()).unwrap_or_default();
+                let design = a.excitations[r.excitation] == Excitation::Design;
+                *point = r.point(x, dx, omega, design, derivatives).ok_or_else(|| {
+                    AnalysisError::ZeroDenominator {
+                        response: a.specs[k].name.clone(),
+                        frequency: freq(lane),
+                    }
+                })?;
+            }
+        }
+        Ok(())
+    }
+}
+
+impl Resolved {
+    /// The response's value (and ω-derivative) from solution `x` (and `dx/dω`); None when
+    /// the denominator, or the value to be inverted, is zero or not finite.
+    fn point(
+        &self,
+        x: &[Complex64],
+        dx: &[Complex64],
+        omega: f64,
+        design: bool,
+        derivatives: bool,
+    ) -> Option<Point> {
+        let num = self.numerator.eval(x, omega, design);
+        let den = match &self.denominator {
+            Some(d) => d.eval(x, omega, design),
+            None => Complex64::new(1.0, 0.0),
+        };
+        let zero = |z: Complex64| z.norm() == 0.0 || !z.re.is_finite() || !z.im.is_finite();
+        if zero(den) || (self.invert && zero(num)) {
+            return None;
+        }
+        let mut value = num / den;
+        let mut derivative = Complex64::default();
+        if derivatives {
+            let dnum = self.numerator.eval_derivative(x, dx, omega);
+            let dden = match &self.denominator {
+                Some(d) => d.eval_derivative(x, dx, omega),
+                None => Complex64::default(),
             };
-            let zero = |z: Complex64| z.norm() == 0.0 || !z.re.is_finite() || !z.im.is_finite();
-            if zero(den) || (r.invert && zero(num)) {
-                return Err(AnalysisError::ZeroDenominator {
-                    response: a.specs[k].name.clone(),
-                    frequency: f,
-                });
-            }
-            let mut value = num / den;
-            let mut derivative = Complex64::default();
-            if derivatives {
-                let dx = &ws.dxs[r.excitation];
-                let dnum = r.numerator.eval_derivative(x, dx, omega);
-                let dden = match &r.denominator {
-                    Some(d) => d.eval_derivative(x, dx, omega),
-                    None => Complex64::default(),
-                };
-                derivative = (dnum * den - num * dden) / (den * den);
-            }
-            if r.invert {
-                // d(1/H)/dω = −H′/H²
-                derivative = -derivative / (value * value);
-                value = value.inv();
-            }
-            ws.points[k] = Point { value, derivative };
+            derivative = (dnum * den - num * dden) / (den * den);
         }
-        Ok(&ws.points)
+        if self.invert {
+            // d(1/H)/dω = −H′/H²
+            derivative = -derivative / (value * value);
+            value = value.inv();
+        }
+        Some(Point { value, derivative })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::network::NetworkBuilder;
+
+    /// A chain with exactly `n` node unknowns driven by a current source, read out as its
+    /// input impedance (a test injection) and as a transfer ratio (the design's own source),
+    /// so two right-hand sides share each factorisation.
+    fn chain(n: usize) -> Analysis {
+        let mut b = NetworkBuilder::new("chain");
+        b.current_source("I1", "gnd", "n1", Complex64::new(1e-3, 2e-4))
+            .unwrap();
+        for k in 1..=n {
+            let node = format!("n{k}");
+            b.resistor(&format!("Rg{k}"), &node, "gnd", 100.0 * (1.0 + k as f64))
+                .unwrap();
+            b.capacitor(
+                &format!("Cg{k}"),
+                &node,
+                "gnd",
+                1e-9 * (1.0 + (k % 3) as f64),
+            )
+            .unwrap();
+            if k > 1 {
+                let prev = format!("n{}", k - 1);
+                b.resistor(&format!("R{k}"), &prev, &node, 50.0 * k as f64)
+                    .unwrap();
+                b.capacitor(&format!("C{k}"), &prev, &node, 2e-9 / k as f64)
+                    .unwrap();
+            }
+        }
+        let net = b.build().unwrap();
+        let first = net.node("n1").unwrap();
+        let last = net.node(&format!("n{n}")).unwrap();
+        let specs = vec![
+            ResponseSpec {
+                name: "zin".into(),
+                kind: ResponseKind::Impedance(first, NodeId::GROUND),
+                loop_gain: false,
+            },
+            ResponseSpec {
+                name: "transfer".into(),
+                kind: ResponseKind::Ratio {
+                    numerator: Probe::Voltage(last, NodeId::GROUND),
+                    denominator: Probe::Current(net.part_id("Rg1").unwrap()),
+                },
+                loop_gain: false,
+            },
+        ];
+        Analysis::new(net, specs).unwrap()
+    }
+
+    /// Several frequencies per pass give the very numbers one frequency per pass gives, on
+    /// every size the stack kernel serves, for a full group of lanes and a partial one.
+    #[test]
+    fn lanes_give_the_numbers_of_single_points() {
+        let freqs: Vec<f64> = (0..LANES + 3)
+            .map(|k| 37.0 * 1.9f64.powi(k as i32))
+            .collect();
+        for n in 1..=crate::solve::SMALL_MAX {
+            let a = chain(n);
+            let ev = a.evaluator().unwrap();
+            assert_eq!(ev.solver_kind(), SolverKind::Small);
+            let mut wide = ev.workspace();
+            let mut one = ev.workspace();
+            let many = ev.at_many(&mut wide, &freqs, true).unwrap().to_vec();
+            assert_eq!(many.len(), freqs.len() * 2);
+            for (k, &f) in freqs.iter().enumerate() {
+                let single = ev.at(&mut one, f, true).unwrap();
+                assert_eq!(&many[2 * k..2 * k + 2], single, "n = {n}, f = {f}");
+            }
+        }
+    }
+
+    /// A frequency that fails inside a group is named, whichever lane it sat in.
+    #[test]
+    fn a_failing_lane_is_named() {
+        let mut b = NetworkBuilder::new("floats at 0 Hz");
+        b.voltage_source("V1", "a", "gnd", 1.0.into()).unwrap();
+        b.capacitor("C1", "a", "b", 1e-6).unwrap();
+        b.capacitor("C2", "b", "gnd", 1e-6).unwrap();
+        let net = b.build().unwrap();
+        let (nb, na) = (net.node("b").unwrap(), net.node("a").unwrap());
+        let spec = ResponseSpec {
+            name: "gain".into(),
+            kind: ResponseKind::Ratio {
+                numerator: Probe::Voltage(nb, NodeId::GROUND),
+                denominator: Probe::Voltage(na, NodeId::GROUND),
+            },
+            loop_gain: false,
+        };
+        let a = Analysis::new(net, vec![spec]).unwrap();
+        let ev = a.evaluator().unwrap();
+        let mut ws = ev.workspace();
+        let ok = ev.at_many(&mut ws, &[1.0, 2.0, 3.0], false).unwrap();
+        // A capacitive divider of equal halves.
+        assert!((ok[0].value - Complex64::new(0.5, 0.0)).norm() < 1e-12);
+        for lane in 0..LANES {
+            let mut freqs: Vec<f64> = (1..=LANES).map(|k| k as f64).collect();
+            freqs[lane] = 0.0;
+            match ev.at_many(&mut ws, &freqs, false) {
+                Err(AnalysisError::Singular {
+                    frequency, blame, ..
+                }) => {
+                    assert_eq!(frequency, 0.0);
+                    assert_eq!(blame, "node b");
+                }
+                other => panic!("lane {lane}: {other:?}"),
+            }
+        }
     }
 }

@@ -117,153 +117,556 @@ impl<'a> SolverPlan<'a> {
             _ => Box::new(DenseLu::new(sys)),
         }
     }
+
+    /// A fresh [`LaneSolver`] with its own workspace: on the stack-kernel path [`LANES`]
+    /// frequencies per pass when `wide`, else one; faer's paths take one frequency per pass.
+    pub fn make_lanes(&self, wide: bool) -> Box<dyn LaneSolver + 'a> {
+        let sys = self.sys;
+        match self.kind {
+            SolverKind::Small => make_small_lanes(sys, wide),
+            _ => Box::new(OneLane::new(sys, self.make())),
+        }
+    }
 }
 
 macro_rules! small_dispatch {
-    ($sys:expr, $($n:literal)*) => {
+    ($sys:expr, $lanes:literal, $fallback:expr, $($n:literal)*) => {
         match $sys.n {
-            $($n => Box::new(SmallLu::<$n>::new($sys)),)*
-            _ => Box::new(DenseLu::new($sys)),
+            $($n => Box::new(LaneLu::<$n, $lanes>::new($sys)),)*
+            _ => $fallback,
         }
     };
 }
 
 fn make_small<'a>(sys: &'a System) -> Box<dyn PointSolver + 'a> {
-    small_dispatch!(sys, 1 2 3 4 5 6 7 8 9 10 11 12 13 14 15 16)
+    small_dispatch!(sys, 1, Box::new(DenseLu::new(sys)), 1 2 3 4 5 6 7 8 9 10 11 12 13 14 15 16)
 }
 
-/// Complex LU with partial pivoting on N×N stack arrays, real and imaginary parts kept in
-/// separate row-major arrays so the elimination's inner loop runs on plain `f64` lanes and
-/// vectorises. `G` and `C` are laid out densely once, so forming `G + jωC` is a copy and a
-/// scaled copy.
-pub struct SmallLu<const N: usize> {
-    g: [[f64; N]; N],
-    c: [[f64; N]; N],
-    re: [[f64; N]; N],
-    im: [[f64; N]; N],
-    inv_re: [f64; N],
-    inv_im: [f64; N],
-    perm: [usize; N],
+fn make_small_lanes<'a>(sys: &'a System, wide: bool) -> Box<dyn LaneSolver + 'a> {
+    let one = || Box::new(OneLane::new(sys, Box::new(DenseLu::new(sys))));
+    if wide {
+        small_dispatch!(sys, 8, one(), 1 2 3 4 5 6 7 8 9 10 11 12 13 14 15 16)
+    } else {
+        small_dispatch!(sys, 1, one(), 1 2 3 4 5 6 7 8 9 10 11 12 13 14 15 16)
+    }
 }
 
-impl<const N: usize> SmallLu<N> {
-    /// A solver for `sys`, which must have exactly N unknowns (other entries are ignored).
-    pub fn new(sys: &System) -> Self {
-        let mut g = [[0.0; N]; N];
-        let mut c = [[0.0; N]; N];
-        for (k, &(r, col)) in sys.pattern.iter().enumerate() {
-            if r < N && col < N {
-                g[r][col] = sys.g[k];
-                c[r][col] = sys.c[k];
-            }
-        }
-        SmallLu {
-            g,
-            c,
-            re: [[0.0; N]; N],
-            im: [[0.0; N]; N],
-            inv_re: [0.0; N],
-            inv_im: [0.0; N],
-            perm: [0; N],
+/// Frequencies the wide stack kernel factors in one pass ([`SolverPlan::make_lanes`]).
+///
+/// Eight lanes of `f64` are two AVX-512, four AVX or eight SSE2 registers wide, so every
+/// elimination step is a handful of full vector operations whatever the system's size.
+/// Measured with `cargo bench -p analyzer-core --bench solve -- small/sweep-10k` on the
+/// 2-core CI machine; the figures are in the README's Performance section.
+pub const LANES: usize = 8;
+
+/// Why one lane of a [`LaneSolver`] failed: the lowest failing lane and its failure.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct LaneFailure {
+    /// Index of the lane (position in the `omegas` given to [`LaneSolver::factor`]).
+    pub lane: usize,
+    /// What went wrong there.
+    pub failure: SolveFailure,
+}
+
+/// Factors `G + jωC` at several frequencies at once and solves against one right-hand side
+/// that does not depend on ω. Vectors are lane-major: lane `l`'s solution is
+/// `out[l·n .. (l + 1)·n]`.
+pub trait LaneSolver: Send {
+    /// How many frequencies one [`LaneSolver::factor`] call takes at most.
+    fn lanes(&self) -> usize;
+    /// Forms and factors the matrix at each of `omegas` (1 ..= `lanes()` values).
+    fn factor(&mut self, omegas: &[f64]) -> Result<(), LaneFailure>;
+    /// Solves `A(ω_l)·x_l = rhs` for every factored lane, checks each lane's normwise
+    /// backward error with one step of iterative refinement above `RESIDUAL_LIMIT / 1000`
+    /// (as [`solve_checked`]), and writes the solutions to `out`.
+    fn solve_checked(
+        &mut self,
+        rhs: &[Complex64],
+        out: &mut [Complex64],
+    ) -> Result<(), LaneFailure>;
+    /// `dx_l/dω = −A(ω_l)⁻¹·(jC)·x_l` for each lane's solution `x_l` in `xs`, into `out`.
+    fn derivative(&mut self, xs: &[Complex64], out: &mut [Complex64]);
+}
+
+/// A [`PointSolver`] (faer's dense or sparse LU) seen as a one-lane [`LaneSolver`].
+struct OneLane<'a> {
+    sys: &'a System,
+    solver: Box<dyn PointSolver + 'a>,
+    omega: f64,
+    check: CheckScratch,
+}
+
+impl<'a> OneLane<'a> {
+    fn new(sys: &'a System, solver: Box<dyn PointSolver + 'a>) -> Self {
+        OneLane {
+            sys,
+            solver,
+            omega: 0.0,
+            check: CheckScratch::default(),
         }
     }
 }
 
-#[inline(always)]
-fn norm1(z: Complex64) -> f64 {
-    z.re.abs() + z.im.abs()
+fn lane0(failure: SolveFailure) -> LaneFailure {
+    LaneFailure { lane: 0, failure }
 }
 
-impl<const N: usize> PointSolver for SmallLu<N> {
-    fn factor(&mut self, omega: f64) -> Result<(), Singular> {
-        let (re, im) = (&mut self.re, &mut self.im);
-        *re = self.g;
-        for (row, crow) in im.iter_mut().zip(&self.c) {
-            for (v, c) in row.iter_mut().zip(crow) {
-                *v = omega * c;
+impl LaneSolver for OneLane<'_> {
+    fn lanes(&self) -> usize {
+        1
+    }
+
+    fn factor(&mut self, omegas: &[f64]) -> Result<(), LaneFailure> {
+        self.omega = omegas.first().copied().unwrap_or(0.0);
+        self.solver
+            .factor(self.omega)
+            .map_err(|s| lane0(SolveFailure::Singular(s)))
+    }
+
+    fn solve_checked(
+        &mut self,
+        rhs: &[Complex64],
+        out: &mut [Complex64],
+    ) -> Result<(), LaneFailure> {
+        let n = self.sys.n;
+        let (Some(x), Some(b)) = (out.get_mut(..n), rhs.get(..n)) else {
+            return Err(lane0(SolveFailure::Untrustworthy {
+                residual: f64::INFINITY,
+            }));
+        };
+        x.copy_from_slice(b);
+        solve_checked(
+            self.solver.as_mut(),
+            self.sys,
+            self.omega,
+            x,
+            &mut self.check,
+        )
+        .map_err(lane0)
+    }
+
+    fn derivative(&mut self, xs: &[Complex64], out: &mut [Complex64]) {
+        let n = self.sys.n;
+        if let (Some(x), Some(dx)) = (xs.get(..n), out.get_mut(..n)) {
+            self.sys.multiply(self.omega, x, dx, true);
+            dx.iter_mut().for_each(|v| *v = -*v);
+            self.solver.solve(dx);
+        }
+    }
+}
+
+/// The one-frequency stack kernel: [`LaneLu`] with a single lane.
+pub type SmallLu<const N: usize> = LaneLu<N, 1>;
+
+/// A complex vector of N entries in L lanes, real and imaginary parts apart.
+#[derive(Clone, Copy)]
+struct LaneVec<const N: usize, const L: usize> {
+    re: [[f64; L]; N],
+    im: [[f64; L]; N],
+}
+
+impl<const N: usize, const L: usize> LaneVec<N, L> {
+    const ZERO: Self = LaneVec {
+        re: [[0.0; L]; N],
+        im: [[0.0; L]; N],
+    };
+
+    /// Lane-major complex slice (lane l at `l·N ..`) into lanes; missing lanes repeat lane 0.
+    fn load(src: &[Complex64], lanes: usize) -> Self {
+        let mut v = Self::ZERO;
+        for l in 0..L {
+            let from = if l < lanes { l } else { 0 };
+            for i in 0..N {
+                let z = src.get(from * N + i).copied().unwrap_or_default();
+                v.re[i][l] = z.re;
+                v.im[i][l] = z.im;
             }
         }
-        for (i, p) in self.perm.iter_mut().enumerate() {
-            *p = i;
+        v
+    }
+
+    /// The same vector in every lane.
+    fn broadcast(src: &[Complex64]) -> Self {
+        let mut v = Self::ZERO;
+        for (i, z) in src.iter().take(N).enumerate() {
+            v.re[i] = [z.re; L];
+            v.im[i] = [z.im; L];
         }
-        for k in 0..N {
-            let mut p = k;
-            let mut best = re[k][k].abs() + im[k][k].abs();
-            for i in k + 1..N {
-                let m = re[i][k].abs() + im[i][k].abs();
-                if m > best {
-                    best = m;
-                    p = i;
+        v
+    }
+
+    /// The first `lanes` lanes into a lane-major complex slice.
+    fn store(&self, dst: &mut [Complex64], lanes: usize) {
+        for (l, out) in dst.chunks_exact_mut(N).take(lanes.min(L)).enumerate() {
+            for (i, z) in out.iter_mut().enumerate() {
+                *z = Complex64::new(self.re[i][l], self.im[i][l]);
+            }
+        }
+    }
+
+    /// max over entries of |Re| + |Im|, per lane (NaN entries ignored, as `f64::max` does).
+    #[allow(clippy::needless_range_loop)]
+    fn norm(&self) -> [f64; L] {
+        let mut m = [0.0f64; L];
+        for i in 0..N {
+            for l in 0..L {
+                m[l] = m[l].max(self.re[i][l].abs() + self.im[i][l].abs());
+            }
+        }
+        m
+    }
+}
+
+/// Complex LU with partial pivoting on N×N stack arrays, for L frequencies at once.
+///
+/// Every entry holds L lanes (one per frequency) with real and imaginary parts in separate
+/// arrays, so each step of the elimination is the same plain `f64` arithmetic on L
+/// neighbouring numbers and vectorises without intrinsics. Pivoting is per lane: each lane
+/// picks its own pivot row and swaps its own entries. Lanes never mix, and each lane performs
+/// exactly the operations of the one-lane kernel in the same order (Rust never fuses a
+/// multiply and an add), so a frequency's result does not depend on which lane, or which
+/// batch, it was solved in. One difference stays: a row whose multiplier is zero in one
+/// lane but not in all is updated with that zero, which can only turn a −0 into +0.
+///
+/// `G` and `C` are laid out densely once; forming `G + jωC` is a copy and a scaled copy. The
+/// residual check runs over the sparse pattern in the system's order, matching
+/// [`solve_checked`] bit for bit.
+pub struct LaneLu<const N: usize, const L: usize> {
+    g: [[f64; N]; N],
+    c: [[f64; N]; N],
+    /// (row, column, g, c) of every stored entry, in the system's order.
+    entries: Vec<(usize, usize, f64, f64)>,
+    /// `‖G + jωC‖∞` bound per lane for the last factorisation.
+    norm: [f64; L],
+    omega: [f64; L],
+    /// Lanes in use since the last factorisation.
+    active: usize,
+    re: [[[f64; L]; N]; N],
+    im: [[[f64; L]; N]; N],
+    inv_re: [[f64; L]; N],
+    inv_im: [[f64; L]; N],
+    perm: [[usize; N]; L],
+    sys_norm: Vec<(f64, f64)>,
+}
+
+impl<const N: usize, const L: usize> LaneLu<N, L> {
+    /// A solver for `sys`, which must have exactly N unknowns (other entries are ignored).
+    pub fn new(sys: &System) -> Self {
+        let mut g = [[0.0; N]; N];
+        let mut c = [[0.0; N]; N];
+        let mut entries = Vec::with_capacity(sys.pattern.len());
+        for (k, &(r, col)) in sys.pattern.iter().enumerate() {
+            if r < N && col < N {
+                g[r][col] = sys.g[k];
+                c[r][col] = sys.c[k];
+                entries.push((r, col, sys.g[k], sys.c[k]));
+            }
+        }
+        LaneLu {
+            g,
+            c,
+            entries,
+            norm: [0.0; L],
+            omega: [0.0; L],
+            active: 0,
+            re: [[[0.0; L]; N]; N],
+            im: [[[0.0; L]; N]; N],
+            inv_re: [[0.0; L]; N],
+            inv_im: [[0.0; L]; N],
+            perm: [[0; N]; L],
+            sys_norm: sys.row_abs().to_vec(),
+        }
+    }
+
+    /// Factors at `omegas` (lanes past its length repeat its first value). On failure, the
+    /// lowest failing lane and the column where its pivot vanished.
+    fn factor_lanes(&mut self, omegas: &[f64]) -> Result<(), (usize, Singular)> {
+        let first = omegas.first().copied().unwrap_or(0.0);
+        for (l, w) in self.omega.iter_mut().enumerate() {
+            *w = omegas.get(l).copied().unwrap_or(first);
+        }
+        self.active = omegas.len().clamp(1, L);
+        for (l, norm) in self.norm.iter_mut().enumerate() {
+            let w = self.omega[l].abs();
+            *norm = self
+                .sys_norm
+                .iter()
+                .map(|&(g, c)| g + w * c)
+                .fold(0.0, f64::max);
+        }
+        let omega = self.omega;
+        let (re, im) = (&mut self.re, &mut self.im);
+        for i in 0..N {
+            for j in 0..N {
+                re[i][j] = [self.g[i][j]; L];
+                for l in 0..L {
+                    im[i][j][l] = omega[l] * self.c[i][j];
                 }
             }
-            if best == 0.0 || !best.is_finite() {
-                return Err(Singular { column: k });
+        }
+        for p in self.perm.iter_mut() {
+            for (i, v) in p.iter_mut().enumerate() {
+                *v = i;
             }
-            if p != k {
-                re.swap(p, k);
-                im.swap(p, k);
-                self.perm.swap(p, k);
+        }
+        let mut failed: [Option<usize>; L] = [None; L];
+        for k in 0..N {
+            let mut best = [0.0f64; L];
+            let mut piv = [k; L];
+            for l in 0..L {
+                best[l] = re[k][k][l].abs() + im[k][k][l].abs();
             }
-            let (pr, pi) = (re[k][k], im[k][k]);
-            let d = 1.0 / (pr * pr + pi * pi);
-            let (ir, ii) = (pr * d, -pi * d);
+            for i in k + 1..N {
+                for l in 0..L {
+                    let m = re[i][k][l].abs() + im[i][k][l].abs();
+                    if m > best[l] {
+                        best[l] = m;
+                        piv[l] = i;
+                    }
+                }
+            }
+            for l in 0..L {
+                if (best[l] == 0.0 || !best[l].is_finite()) && failed[l].is_none() {
+                    failed[l] = Some(k);
+                }
+                let p = piv[l];
+                if p != k {
+                    for j in 0..N {
+                        let t = re[k][j][l];
+                        re[k][j][l] = re[p][j][l];
+                        re[p][j][l] = t;
+                        let t = im[k][j][l];
+                        im[k][j][l] = im[p][j][l];
+                        im[p][j][l] = t;
+                    }
+                    self.perm[l].swap(p, k);
+                }
+            }
+            if failed.iter().take(self.active).all(Option::is_some) {
+                break;
+            }
+            let (mut ir, mut ii) = ([0.0; L], [0.0; L]);
+            for l in 0..L {
+                let (pr, pi) = (re[k][k][l], im[k][k][l]);
+                let d = 1.0 / (pr * pr + pi * pi);
+                ir[l] = pr * d;
+                ii[l] = -pi * d;
+            }
             self.inv_re[k] = ir;
             self.inv_im[k] = ii;
-            let (re_top, re_bottom) = re.split_at_mut(k + 1);
-            let (im_top, im_bottom) = im.split_at_mut(k + 1);
-            let (kr, ki) = (&re_top[k], &im_top[k]);
-            for (rr, ri) in re_bottom.iter_mut().zip(im_bottom.iter_mut()) {
-                let (ar, ai) = (rr[k], ri[k]);
-                let (lr, li) = (ar * ir - ai * ii, ar * ii + ai * ir);
-                rr[k] = lr;
-                ri[k] = li;
-                if lr == 0.0 && li == 0.0 {
+            let (kr, ki) = (re[k], im[k]);
+            for i in k + 1..N {
+                let (mut lr, mut li) = ([0.0; L], [0.0; L]);
+                let mut any = false;
+                for l in 0..L {
+                    let (ar, ai) = (re[i][k][l], im[i][k][l]);
+                    lr[l] = ar * ir[l] - ai * ii[l];
+                    li[l] = ar * ii[l] + ai * ir[l];
+                    any |= lr[l] != 0.0 || li[l] != 0.0;
+                }
+                re[i][k] = lr;
+                im[i][k] = li;
+                if !any {
                     continue;
                 }
                 for j in k + 1..N {
-                    rr[j] -= lr * kr[j] - li * ki[j];
-                    ri[j] -= lr * ki[j] + li * kr[j];
+                    for l in 0..L {
+                        re[i][j][l] -= lr[l] * kr[j][l] - li[l] * ki[j][l];
+                        im[i][j][l] -= lr[l] * ki[j][l] + li[l] * kr[j][l];
+                    }
                 }
             }
         }
+        match failed
+            .iter()
+            .take(self.active)
+            .enumerate()
+            .find_map(|(l, f)| f.map(|column| (l, Singular { column })))
+        {
+            Some(e) => Err(e),
+            None => Ok(()),
+        }
+    }
+
+    /// Solves in place, every lane with its own factorisation; `v` is in natural order.
+    fn solve_lanes(&self, v: &mut LaneVec<N, L>) {
+        let (re, im) = (&self.re, &self.im);
+        let mut y = LaneVec::<N, L>::ZERO;
+        for (l, perm) in self.perm.iter().enumerate() {
+            for (i, &p) in perm.iter().enumerate() {
+                y.re[i][l] = v.re[p][l];
+                y.im[i][l] = v.im[p][l];
+            }
+        }
+        for i in 1..N {
+            let (mut sr, mut si) = (y.re[i], y.im[i]);
+            for j in 0..i {
+                for l in 0..L {
+                    sr[l] -= re[i][j][l] * y.re[j][l] - im[i][j][l] * y.im[j][l];
+                    si[l] -= re[i][j][l] * y.im[j][l] + im[i][j][l] * y.re[j][l];
+                }
+            }
+            y.re[i] = sr;
+            y.im[i] = si;
+        }
+        for i in (0..N).rev() {
+            let (mut sr, mut si) = (y.re[i], y.im[i]);
+            for j in i + 1..N {
+                for l in 0..L {
+                    sr[l] -= re[i][j][l] * y.re[j][l] - im[i][j][l] * y.im[j][l];
+                    si[l] -= re[i][j][l] * y.im[j][l] + im[i][j][l] * y.re[j][l];
+                }
+            }
+            let (dr, di) = (self.inv_re[i], self.inv_im[i]);
+            for l in 0..L {
+                y.re[i][l] = sr[l] * dr[l] - si[l] * di[l];
+                y.im[i][l] = sr[l] * di[l] + si[l] * dr[l];
+            }
+        }
+        *v = y;
+    }
+
+    /// `(G + jωC)·x` per lane (or `C·x` times j when `derivative_only`), summed over the
+    /// pattern in the system's order as [`System::multiply`] does.
+    fn multiply(&self, x: &LaneVec<N, L>, derivative_only: bool) -> LaneVec<N, L> {
+        let mut y = LaneVec::<N, L>::ZERO;
+        for &(r, c, g, cv) in &self.entries {
+            if r >= N || c >= N {
+                continue;
+            }
+            for l in 0..L {
+                let (ar, ai) = if derivative_only {
+                    (0.0, cv)
+                } else {
+                    (g, self.omega[l] * cv)
+                };
+                let (xr, xi) = (x.re[c][l], x.im[c][l]);
+                y.re[r][l] += ar * xr - ai * xi;
+                y.im[r][l] += ar * xi + ai * xr;
+            }
+        }
+        y
+    }
+
+    /// Normwise backward error per lane (as `backward_error`), and the residual `b − A·x`.
+    fn backward_error(&self, b: &LaneVec<N, L>, x: &LaneVec<N, L>) -> ([f64; L], LaneVec<N, L>) {
+        let mut r = self.multiply(x, false);
+        for i in 0..N {
+            for l in 0..L {
+                r.re[i][l] = b.re[i][l] - r.re[i][l];
+                r.im[i][l] = b.im[i][l] - r.im[i][l];
+            }
+        }
+        let (num, bnorm, xnorm) = (r.norm(), b.norm(), x.norm());
+        let mut err = [0.0; L];
+        for l in 0..L {
+            let den = self.norm[l] * xnorm[l] + bnorm[l];
+            err[l] = if num[l].is_nan() || den.is_nan() {
+                f64::INFINITY
+            } else if den == 0.0 {
+                if num[l] == 0.0 {
+                    0.0
+                } else {
+                    f64::INFINITY
+                }
+            } else {
+                num[l] / den
+            };
+        }
+        (err, r)
+    }
+}
+
+impl<const N: usize, const L: usize> LaneSolver for LaneLu<N, L> {
+    fn lanes(&self) -> usize {
+        L
+    }
+
+    fn factor(&mut self, omegas: &[f64]) -> Result<(), LaneFailure> {
+        self.factor_lanes(omegas).map_err(|(lane, s)| LaneFailure {
+            lane,
+            failure: SolveFailure::Singular(s),
+        })
+    }
+
+    fn solve_checked(
+        &mut self,
+        rhs: &[Complex64],
+        out: &mut [Complex64],
+    ) -> Result<(), LaneFailure> {
+        let b = LaneVec::<N, L>::broadcast(rhs);
+        let mut x = b;
+        self.solve_lanes(&mut x);
+        let (mut err, mut r) = self.backward_error(&b, &x);
+        if err
+            .iter()
+            .take(self.active)
+            .any(|&e| e > RESIDUAL_LIMIT * 1e-3)
+        {
+            self.solve_lanes(&mut r);
+            let mut refined = x;
+            for i in 0..N {
+                for l in 0..L {
+                    refined.re[i][l] += r.re[i][l];
+                    refined.im[i][l] += r.im[i][l];
+                }
+            }
+            let (err2, _) = self.backward_error(&b, &refined);
+            for l in 0..L {
+                if err[l] > RESIDUAL_LIMIT * 1e-3 {
+                    for i in 0..N {
+                        x.re[i][l] = refined.re[i][l];
+                        x.im[i][l] = refined.im[i][l];
+                    }
+                    err[l] = err2[l];
+                }
+            }
+        }
+        x.store(out, self.active);
+        for (lane, &e) in err.iter().enumerate().take(self.active) {
+            let finite = (0..N).all(|i| x.re[i][lane].is_finite() && x.im[i][lane].is_finite());
+            if e.is_nan() || e > RESIDUAL_LIMIT || !finite {
+                return Err(LaneFailure {
+                    lane,
+                    failure: SolveFailure::Untrustworthy { residual: e },
+                });
+            }
+        }
         Ok(())
+    }
+
+    fn derivative(&mut self, xs: &[Complex64], out: &mut [Complex64]) {
+        let x = LaneVec::<N, L>::load(xs, self.active);
+        let mut d = self.multiply(&x, true);
+        for i in 0..N {
+            for l in 0..L {
+                d.re[i][l] = -d.re[i][l];
+                d.im[i][l] = -d.im[i][l];
+            }
+        }
+        self.solve_lanes(&mut d);
+        d.store(out, self.active);
+    }
+}
+
+impl<const N: usize, const L: usize> PointSolver for LaneLu<N, L> {
+    fn factor(&mut self, omega: f64) -> Result<(), Singular> {
+        self.factor_lanes(&[omega]).map_err(|(_, s)| s)
     }
 
     fn solve(&mut self, rhs: &mut [Complex64]) {
         if rhs.len() != N {
             return;
         }
-        let (re, im) = (&self.re, &self.im);
-        let mut yr = [0.0; N];
-        let mut yi = [0.0; N];
-        for i in 0..N {
-            let v = rhs[self.perm[i]];
-            yr[i] = v.re;
-            yi[i] = v.im;
-        }
-        for i in 1..N {
-            let (mut sr, mut si) = (yr[i], yi[i]);
-            for j in 0..i {
-                sr -= re[i][j] * yr[j] - im[i][j] * yi[j];
-                si -= re[i][j] * yi[j] + im[i][j] * yr[j];
-            }
-            yr[i] = sr;
-            yi[i] = si;
-        }
-        for i in (0..N).rev() {
-            let (mut sr, mut si) = (yr[i], yi[i]);
-            for j in i + 1..N {
-                sr -= re[i][j] * yr[j] - im[i][j] * yi[j];
-                si -= re[i][j] * yi[j] + im[i][j] * yr[j];
-            }
-            let (dr, di) = (self.inv_re[i], self.inv_im[i]);
-            yr[i] = sr * dr - si * di;
-            yi[i] = sr * di + si * dr;
-        }
-        for (v, (r, i)) in rhs.iter_mut().zip(yr.iter().zip(&yi)) {
-            *v = Complex64::new(*r, *i);
-        }
+        let mut v = LaneVec::<N, L>::broadcast(rhs);
+        self.solve_lanes(&mut v);
+        v.store(rhs, 1);
     }
+}
+
+#[inline(always)]
+fn norm1(z: Complex64) -> f64 {
+    z.re.abs() + z.im.abs()
 }
 
 /// faer's dense LU with partial pivoting into a reused workspace.
@@ -611,6 +1014,36 @@ mod tests {
             }
         }
         assert_eq!(SolverKind::Auto.resolve(SMALL_MAX + 1), SolverKind::Sparse);
+    }
+
+    /// The wide stack kernel, lane by lane, gives the very solution and derivative of the
+    /// one-lane kernel, on every size it serves, for a full and a partial group of lanes.
+    #[test]
+    fn wide_kernel_matches_one_lane_bit_for_bit() {
+        for n in 1..=SMALL_MAX {
+            let sys = chain(n);
+            let plan = SolverPlan::new(&sys, SolverKind::Small).unwrap();
+            let mut wide = plan.make_lanes(true);
+            let mut one = plan.make_lanes(false);
+            assert_eq!((wide.lanes(), one.lanes()), (LANES, 1));
+            for count in [LANES, 3] {
+                let omegas: Vec<f64> = (0..count).map(|k| 2e3 * 2.3f64.powi(k as i32)).collect();
+                let mut xs = vec![Complex64::default(); n * LANES];
+                let mut dxs = xs.clone();
+                wide.factor(&omegas).unwrap();
+                wide.solve_checked(&sys.b, &mut xs).unwrap();
+                wide.derivative(&xs, &mut dxs);
+                for (l, &w) in omegas.iter().enumerate() {
+                    let (mut x, mut dx) =
+                        (vec![Complex64::default(); n], vec![Complex64::default(); n]);
+                    one.factor(&[w]).unwrap();
+                    one.solve_checked(&sys.b, &mut x).unwrap();
+                    one.derivative(&x, &mut dx);
+                    assert_eq!(&xs[l * n..(l + 1) * n], &x[..], "n = {n}, lane {l}");
+                    assert_eq!(&dxs[l * n..(l + 1) * n], &dx[..], "n = {n}, lane {l}");
+                }
+            }
+        }
     }
 
     #[test]

@@ -336,6 +336,11 @@ impl System {
         }
     }
 
+    /// Per row, Σ|g| and Σ|c| over the stored entries.
+    pub fn row_abs(&self) -> &[(f64, f64)] {
+        &self.row_abs
+    }
+
     /// `‖G + jωC‖∞` bounded by `max_i (Σ|g_ij| + ω·Σ|c_ij|)` from the stored row sums, with
     /// |z| taken as |Re z| + |Im z|.
     pub fn norm_inf(&self, omega: f64) -> f64 {

@@ -353,17 +353,11 @@ pub fn run_chunks<'a, E: From<AnalysisError>>(
                 }
                 let first = offset + t * task;
                 let count = task.min(offset + len - first);
-                let mut pts = Vec::with_capacity(count * width);
-                let mut fs = Vec::with_capacity(count);
-                for k in first..first + count {
-                    let f = grid.at(k);
-                    match ev.at(ws, f, opts.derivatives) {
-                        Ok(p) => pts.extend_from_slice(p),
-                        Err(e) => return (done, Some((t, e))),
-                    }
-                    fs.push(f);
+                let fs: Vec<Hertz> = (first..first + count).map(|k| grid.at(k)).collect();
+                match ev.at_many(ws, &fs, opts.derivatives) {
+                    Ok(p) => done.push((t, p.to_vec(), fs)),
+                    Err(e) => return (done, Some((t, e))),
                 }
-                done.push((t, pts, fs));
             }
         };
         let results: Vec<_> = if workers == 1 {
