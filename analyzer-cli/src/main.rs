@@ -7,7 +7,7 @@ mod output;
 mod report;
 
 use analyzer_core::design::{self, Design};
-use analyzer_core::export::CsvStream;
+use analyzer_core::export::{CsvStream, Polar};
 use analyzer_core::metrics::{self, MetricOptions, Reference, Trace};
 use analyzer_core::response::{Analysis, AnalysisError, ResponseUnit};
 use analyzer_core::solve::SolverKind;
@@ -356,14 +356,18 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
     let started = std::time::Instant::now();
     let streamed = sweep::run_chunks(&ev, &grid, &opts, sweep::CHUNK_POINTS, |c: Chunk<'_>| {
         let delay = |r: usize| c.delays.map(|d| d[r].as_slice());
-        for (r, t) in traces.iter_mut().enumerate() {
-            t.push(&c.values[r], delay(r));
-        }
+        // Magnitude and phase once per response, shared by the trace and every CSV.
+        let polar: Vec<Polar> = traces
+            .iter_mut()
+            .enumerate()
+            .map(|(r, t)| t.push(&c.values[r], delay(r)))
+            .collect();
         if let Some(stream) = stdout_csv.as_mut() {
             let values: Vec<&[_]> = c.values.iter().map(Vec::as_slice).collect();
+            let polar: Vec<&Polar> = polar.iter().collect();
             let delays: Vec<Option<&[f64]>> = (0..nr).map(delay).collect();
             stream
-                .rows(&mut stdout, c.freqs, &values, &delays)
+                .rows(&mut stdout, c.freqs, &values, &polar, &delays)
                 .map_err(|e| Streamed::Out(Failure::output(format!("stdout: {e}"))))?;
         }
         for (r, (h, stream)) in csv.iter_mut().enumerate() {
@@ -372,7 +376,7 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
                 .writer(*h)
                 .ok_or_else(|| Streamed::Out(Failure::output("internal: no output")))?;
             stream
-                .rows(w, c.freqs, &[&c.values[r]], &[delay(r)])
+                .rows(w, c.freqs, &[&c.values[r]], &[&polar[r]], &[delay(r)])
                 .map_err(|e| Streamed::Out(Failure::output(format!("{target}: {e}"))))?;
         }
         Ok::<(), Streamed>(())

@@ -51,6 +51,56 @@ impl Unwrapper {
     }
 }
 
+/// Points per block of the parallel passes over a chunk (polar form, CSV text).
+const BLOCK: usize = 16_384;
+
+/// Magnitude and phase of a run of consecutive sweep values, computed once and shared by
+/// every writer (CSV, figures' trace, plot): `20·log10|H|`, the principal phase `∠H` in
+/// degrees, and the phase unwrapped along the sweep.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Polar {
+    /// 20·log10|H| per point.
+    pub db: Vec<f64>,
+    /// Principal phase in degrees, as `atan2` gives it.
+    pub principal_deg: Vec<f64>,
+    /// Phase in degrees unwrapped along the sweep (see [`Unwrapper`]).
+    pub unwrapped_deg: Vec<f64>,
+}
+
+impl Polar {
+    /// The polar form of `values`; magnitude and principal phase in parallel blocks, then
+    /// one cheap pass that unwraps, continuing from where `unwrap` left the previous run.
+    pub fn compute(values: &[Complex64], unwrap: &mut Unwrapper) -> Polar {
+        let n = values.len();
+        let mut db = vec![0.0; n];
+        let mut principal_deg = vec![0.0; n];
+        db.par_chunks_mut(BLOCK)
+            .zip(principal_deg.par_chunks_mut(BLOCK))
+            .zip(values.par_chunks(BLOCK))
+            .for_each(|((db, ph), v)| {
+                for ((d, p), z) in db.iter_mut().zip(ph.iter_mut()).zip(v) {
+                    *d = 20.0 * z.norm().log10();
+                    *p = z.arg().to_degrees();
+                }
+            });
+        let unwrapped_deg = principal_deg.iter().map(|&p| unwrap.next(p)).collect();
+        Polar {
+            db,
+            principal_deg,
+            unwrapped_deg,
+        }
+    }
+
+    /// The phase column a writer shows: unwrapped or principal.
+    pub fn phase_deg(&self, unwrapped: bool) -> &[f64] {
+        if unwrapped {
+            &self.unwrapped_deg
+        } else {
+            &self.principal_deg
+        }
+    }
+}
+
 /// One response's columns, ready to be written.
 #[derive(Clone, Debug)]
 pub struct Columns<'a> {
@@ -66,13 +116,12 @@ pub struct Columns<'a> {
     pub unwrap: bool,
 }
 
-const BLOCK: usize = 16_384;
-
 /// A CSV written chunk by chunk: the header first, then each chunk's rows formatted in
-/// parallel blocks and written in order. Phase unwrapping carries across chunks.
+/// parallel blocks and written in order. The caller supplies each chunk's [`Polar`] form
+/// (computed once for all writers) and carries the phase unwrapping across chunks.
 #[derive(Clone, Debug)]
 pub struct CsvStream {
-    unwrap: Vec<Option<Unwrapper>>,
+    unwrap: Vec<bool>,
 }
 
 impl CsvStream {
@@ -107,43 +156,40 @@ impl CsvStream {
                 .map_err(|e| io::Error::other(e.to_string()))?,
         )?;
         Ok(CsvStream {
-            unwrap: cols.iter().map(|c| c.3.then(Unwrapper::default)).collect(),
+            unwrap: cols.iter().map(|c| c.3).collect(),
         })
     }
 
-    /// Writes the rows of one chunk: `values[r]` and `delays[r]` are response r's columns.
+    /// Writes the rows of one chunk: `values[r]`, `polar[r]` and `delays[r]` are response
+    /// r's columns over `freqs`.
     pub fn rows<W: Write>(
         &mut self,
         out: &mut W,
         freqs: &[f64],
         values: &[&[Complex64]],
+        polar: &[&Polar],
         delays: &[Option<&[f64]>],
     ) -> io::Result<()> {
-        let derived: Vec<(Vec<f64>, Vec<f64>)> = values
-            .iter()
-            .zip(self.unwrap.iter_mut())
-            .map(|(v, u)| {
-                let mag = magnitudes_db(v);
-                let ph = v
-                    .iter()
-                    .map(|z| {
-                        let p = z.arg().to_degrees();
-                        u.as_mut().map_or(p, |u| u.next(p))
-                    })
-                    .collect();
-                (mag, ph)
-            })
-            .collect();
         let n = freqs.len();
+        // Per response: values, magnitude, the phase shown, delay.
+        type Cols<'c> = (&'c [Complex64], &'c [f64], &'c [f64], Option<&'c [f64]>);
+        let cols: Vec<Cols<'_>> = values
+            .iter()
+            .zip(polar)
+            .zip(delays)
+            .zip(&self.unwrap)
+            .map(|(((v, p), d), &u)| (*v, p.db.as_slice(), p.phase_deg(u), *d))
+            .collect();
         let blocks: Vec<Vec<u8>> = (0..n.div_ceil(BLOCK))
             .into_par_iter()
             .map(|b| {
-                let mut buf = Vec::with_capacity(BLOCK * 24 * (1 + 5 * values.len()));
+                let rows = b * BLOCK..((b + 1) * BLOCK).min(n);
+                let mut buf = Vec::with_capacity(rows.len() * (25 + 5 * 25 * cols.len()));
                 let mut r = ryu::Buffer::new();
-                for k in b * BLOCK..((b + 1) * BLOCK).min(n) {
+                for k in rows {
                     buf.extend_from_slice(r.format(freqs[k]).as_bytes());
-                    for ((v, (mag, ph)), d) in values.iter().zip(&derived).zip(delays) {
-                        for x in [mag[k], ph[k], v[k].re, v[k].im] {
+                    for &(v, db, ph, d) in &cols {
+                        for x in [db[k], ph[k], v[k].re, v[k].im] {
                             buf.push(b',');
                             buf.extend_from_slice(r.format(x).as_bytes());
                         }
@@ -172,8 +218,13 @@ pub fn write_csv<W: Write>(out: &mut W, freqs: &[f64], cols: &[Columns<'_>]) -> 
         .collect();
     let mut stream = CsvStream::start(out, &meta)?;
     let values: Vec<&[Complex64]> = cols.iter().map(|c| c.values).collect();
+    let polar: Vec<Polar> = cols
+        .iter()
+        .map(|c| Polar::compute(c.values, &mut Unwrapper::default()))
+        .collect();
+    let polar: Vec<&Polar> = polar.iter().collect();
     let delays: Vec<Option<&[f64]>> = cols.iter().map(|c| c.delay).collect();
-    stream.rows(out, freqs, &values, &delays)
+    stream.rows(out, freqs, &values, &polar, &delays)
 }
 
 /// A labelled point to mark on a plot.

@@ -272,17 +272,21 @@ impl Trace {
         }
     }
 
-    /// Appends the next points, in sweep order.
-    pub fn push(&mut self, values: &[num_complex::Complex64], delays: Option<&[f64]>) {
-        self.db
-            .extend(values.iter().map(|v| 20.0 * v.norm().log10()));
-        for v in values {
-            let p = self.unwrap.next(v.arg().to_degrees());
-            self.phase_deg.push(p as f32);
-        }
+    /// Appends the next points, in sweep order, and returns their polar form (the phase
+    /// unwrapped continuing this trace's previous points) for other writers to share.
+    pub fn push(
+        &mut self,
+        values: &[num_complex::Complex64],
+        delays: Option<&[f64]>,
+    ) -> crate::export::Polar {
+        let polar = crate::export::Polar::compute(values, &mut self.unwrap);
+        self.db.extend_from_slice(&polar.db);
+        self.phase_deg
+            .extend(polar.unwrapped_deg.iter().map(|&p| p as f32));
         if let (Some(d), Some(src)) = (self.delay_s.as_mut(), delays) {
             d.extend(src.iter().map(|&x| x as f32));
         }
+        polar
     }
 
     /// A trace of a whole column at once.

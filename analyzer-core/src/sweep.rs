@@ -8,7 +8,7 @@
 //! workspace per worker; results are stored by index, so the output never depends on the
 //! number of threads or the order in which chunks finish.
 
-use crate::response::{AnalysisError, Evaluator, Point};
+use crate::response::{AnalysisError, Evaluator, Workspace};
 use crate::units::{format_eng, Hertz};
 use rayon::prelude::*;
 use std::sync::atomic::{AtomicUsize, Ordering};
@@ -305,9 +305,108 @@ pub struct Chunk<'s> {
     pub delays: Option<&'s [Vec<f64>]>,
 }
 
+/// A solved chunk, owned, on its way from the solving thread to the sink.
+struct Solved {
+    offset: usize,
+    freqs: Vec<Hertz>,
+    values: Vec<Vec<num_complex::Complex64>>,
+    delays: Option<Vec<Vec<f64>>>,
+}
+
+impl Solved {
+    fn view(&self) -> Chunk<'_> {
+        Chunk {
+            offset: self.offset,
+            freqs: &self.freqs,
+            values: &self.values,
+            delays: self.delays.as_deref(),
+        }
+    }
+}
+
+/// Solves points `offset .. offset + len` of the grid on the workspaces in `pool` (in
+/// parallel when there are several): tasks of `task` points are taken from a shared counter
+/// and stored by index, so the result never depends on timing. Fails with the error of the
+/// lowest failing frequency.
+fn solve_chunk<'a>(
+    ev: &Evaluator<'a>,
+    grid: &Grid,
+    derivatives: bool,
+    pool: &mut [Workspace<'a>],
+    (offset, len): (usize, usize),
+    task: usize,
+) -> Result<Solved, AnalysisError> {
+    let nr = ev.analysis().responses().len();
+    let tasks = len.div_ceil(task);
+    let next = AtomicUsize::new(0);
+    let worker = |ws: &mut Workspace<'a>| {
+        let mut done = Vec::new();
+        loop {
+            let t = next.fetch_add(1, Ordering::Relaxed);
+            if t >= tasks {
+                return (done, None);
+            }
+            let first = offset + t * task;
+            let count = task.min(offset + len - first);
+            let fs: Vec<Hertz> = (first..first + count).map(|k| grid.at(k)).collect();
+            match ev.at_many(ws, &fs, derivatives) {
+                Ok(p) => done.push((t, p.to_vec(), fs)),
+                Err(e) => return (done, Some((t, e))),
+            }
+        }
+    };
+    let results: Vec<_> = if pool.len() == 1 {
+        pool.iter_mut().map(worker).collect()
+    } else {
+        pool.par_iter_mut().map(worker).collect()
+    };
+    let mut out = Solved {
+        offset,
+        freqs: vec![0.0; len],
+        values: vec![vec![num_complex::Complex64::default(); len]; nr],
+        delays: derivatives.then(|| vec![vec![0.0; len]; nr]),
+    };
+    // Every task below the lowest failing one was handed out before it, so the lowest
+    // failing task is the lowest failing frequency whatever the timing.
+    let mut first_error: Option<(usize, AnalysisError)> = None;
+    for (done, err) in results {
+        if let Some((t, e)) = err {
+            if first_error.as_ref().is_none_or(|(u, _)| t < *u) {
+                first_error = Some((t, e));
+            }
+        }
+        for (t, pts, fs) in done {
+            let at = t * task;
+            if let Some(dst) = out.freqs.get_mut(at..at + fs.len()) {
+                dst.copy_from_slice(&fs);
+            }
+            for (r, col) in out.values.iter_mut().enumerate() {
+                let rows = pts.iter().skip(r).step_by(nr.max(1));
+                for (dst, p) in col.iter_mut().skip(at).zip(rows) {
+                    *dst = p.value;
+                }
+            }
+            if let Some(d) = out.delays.as_mut() {
+                for (r, col) in d.iter_mut().enumerate() {
+                    let rows = pts.iter().skip(r).step_by(nr.max(1));
+                    for (dst, p) in col.iter_mut().skip(at).zip(rows) {
+                        *dst = p.group_delay();
+                    }
+                }
+            }
+        }
+    }
+    match first_error {
+        Some((_, e)) => Err(e),
+        None => Ok(out),
+    }
+}
+
 /// Evaluates the grid chunk by chunk (each chunk in parallel) and hands every chunk, in
-/// order, to `sink`; memory stays bounded by one chunk whatever the grid's size. Stops at
-/// the first failure: the lowest failing frequency's error, or the sink's own error.
+/// order, to `sink`, which runs on the calling thread while the next chunk is solved:
+/// writing the output overlaps with solving, and memory stays bounded by three chunks
+/// whatever the grid's size. Stops at the first failure: the lowest failing frequency's
+/// error (after the chunks before it went to the sink), or the sink's own error.
 pub fn run_chunks<'a, E: From<AnalysisError>>(
     ev: &Evaluator<'a>,
     grid: &Grid,
@@ -316,18 +415,15 @@ pub fn run_chunks<'a, E: From<AnalysisError>>(
     mut sink: impl FnMut(Chunk<'_>) -> Result<(), E>,
 ) -> Result<(), E> {
     let n = grid.len();
-    let nr = ev.analysis().responses().len();
     if grid.has_dc() {
         ev.analysis().check_dc()?;
     }
     let chunk_points = chunk_points.max(1);
-    let width = nr.max(1);
-    let mut flat = vec![Point::default(); chunk_points.min(n) * width];
-    let mut freqs = vec![0.0; chunk_points.min(n)];
-    let mut values = vec![Vec::with_capacity(chunk_points.min(n)); nr];
-    let mut delays = opts
-        .derivatives
-        .then(|| vec![Vec::with_capacity(chunk_points.min(n)); nr]);
+    let spans = move || {
+        (0..n)
+            .step_by(chunk_points)
+            .map(move |o| (o, chunk_points.min(n - o)))
+    };
     let task = task_points(ev.analysis().system().n);
     // One workspace per worker for the whole run (a large system's workspace is costly to
     // make); workers take tasks from a shared counter, so the load balances itself.
@@ -336,74 +432,34 @@ pub fn run_chunks<'a, E: From<AnalysisError>>(
     } else {
         rayon::current_num_threads().max(1)
     };
-    let mut pool: Vec<crate::response::Workspace<'a>> =
-        (0..workers).map(|_| ev.workspace()).collect();
-    let mut offset = 0;
-    while offset < n {
-        let len = chunk_points.min(n - offset);
-        freqs.resize(chunk_points.min(n), 0.0);
-        let tasks = len.div_ceil(task);
-        let next = AtomicUsize::new(0);
-        let worker = |ws: &mut crate::response::Workspace<'a>| {
-            let mut done = Vec::new();
-            loop {
-                let t = next.fetch_add(1, Ordering::Relaxed);
-                if t >= tasks {
-                    return (done, None);
-                }
-                let first = offset + t * task;
-                let count = task.min(offset + len - first);
-                let fs: Vec<Hertz> = (first..first + count).map(|k| grid.at(k)).collect();
-                match ev.at_many(ws, &fs, opts.derivatives) {
-                    Ok(p) => done.push((t, p.to_vec(), fs)),
-                    Err(e) => return (done, Some((t, e))),
-                }
-            }
-        };
-        let results: Vec<_> = if workers == 1 {
-            pool.iter_mut().map(worker).collect()
-        } else {
-            pool.par_iter_mut().map(worker).collect()
-        };
-        // Every task below the lowest failing one was handed out before it, so the lowest
-        // failing task is the lowest failing frequency whatever the timing.
-        let mut first_error: Option<(usize, AnalysisError)> = None;
-        for (done, err) in results {
-            if let Some((t, e)) = err {
-                if first_error.as_ref().is_none_or(|(u, _)| t < *u) {
-                    first_error = Some((t, e));
-                }
-            }
-            for (t, pts, fs) in done {
-                let at = t * task;
-                flat[at * width..at * width + pts.len()].copy_from_slice(&pts);
-                freqs[at..at + fs.len()].copy_from_slice(&fs);
-            }
+    let mut pool: Vec<Workspace<'a>> = (0..workers).map(|_| ev.workspace()).collect();
+    let derivatives = opts.derivatives;
+    if opts.sequential || n <= chunk_points {
+        for span in spans() {
+            let solved = solve_chunk(ev, grid, derivatives, &mut pool, span, task)?;
+            sink(solved.view())?;
         }
-        if let Some((_, e)) = first_error {
-            return Err(e.into());
-        }
-        let flat = &flat[..len * width];
-        freqs.truncate(len);
-        for (r, col) in values.iter_mut().enumerate() {
-            col.clear();
-            col.extend(flat.chunks(width).map(|row| row[r].value));
-        }
-        if let Some(d) = delays.as_mut() {
-            for (r, col) in d.iter_mut().enumerate() {
-                col.clear();
-                col.extend(flat.chunks(width).map(|row| row[r].group_delay()));
-            }
-        }
-        sink(Chunk {
-            offset,
-            freqs: &freqs,
-            values: &values,
-            delays: delays.as_deref(),
-        })?;
-        offset += len;
+        return Ok(());
     }
-    Ok(())
+    // A solving thread feeds the sink through a channel of one: chunk k + 1 is solved on
+    // rayon's pool while the sink formats and writes chunk k (also on the pool).
+    std::thread::scope(|scope| {
+        let (tx, rx) = std::sync::mpsc::sync_channel(1);
+        scope.spawn(move || {
+            for span in spans() {
+                let solved = solve_chunk(ev, grid, derivatives, &mut pool, span, task);
+                let failed = solved.is_err();
+                // A closed channel means the sink failed: stop solving.
+                if tx.send(solved).is_err() || failed {
+                    return;
+                }
+            }
+        });
+        for solved in rx {
+            sink(solved?.view())?;
+        }
+        Ok(())
+    })
 }
 
 /// Evaluates every response at every grid point in parallel (or on this thread) and keeps
@@ -439,6 +495,8 @@ pub fn run<'a>(
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::network::{NetworkBuilder, NodeId};
+    use crate::response::{Analysis, Probe, ResponseKind, ResponseSpec};
 
     #[test]
     fn log_grid_has_exact_ends_and_density() {
@@ -482,5 +540,96 @@ mod tests {
             Grid::list(vec![f64::NAN]),
             Err(GridError::BadFrequency { .. })
         ));
+    }
+
+    /// An RC low-pass with a capacitor of `farads` from `out` to ground.
+    fn rc(farads: f64) -> Analysis {
+        let mut b = NetworkBuilder::new("rc");
+        b.voltage_source("V1", "in", "gnd", 1.0.into()).unwrap();
+        b.resistor("R1", "in", "out", 1e3).unwrap();
+        b.capacitor("C1", "out", "gnd", farads).unwrap();
+        let net = b.build().unwrap();
+        let (i, o) = (net.node("in").unwrap(), net.node("out").unwrap());
+        let spec = ResponseSpec {
+            name: "gain".into(),
+            kind: ResponseKind::Ratio {
+                numerator: Probe::Voltage(o, NodeId::GROUND),
+                denominator: Probe::Voltage(i, NodeId::GROUND),
+            },
+            loop_gain: false,
+        };
+        Analysis::new(net, vec![spec]).unwrap()
+    }
+
+    /// Chunks reach the sink in order, contiguous, each point as a single evaluation
+    /// gives it, whether the chunks are pipelined (several) or not (one, or sequential).
+    #[test]
+    fn chunks_arrive_in_order_with_the_values_of_single_points() {
+        let a = rc(1e-7);
+        let ev = a.evaluator().unwrap();
+        let grid = Grid::log(10.0, 1e5, 25.0).unwrap();
+        let mut ws = ev.workspace();
+        let expect: Vec<_> = (0..grid.len())
+            .map(|k| ev.at(&mut ws, grid.at(k), true).unwrap()[0])
+            .collect();
+        for (chunk, sequential) in [(7, false), (7, true), (1000, false), (1, false)] {
+            let opts = SweepOptions {
+                derivatives: true,
+                sequential,
+            };
+            let mut next = 0;
+            run_chunks(&ev, &grid, &opts, chunk, |c: Chunk<'_>| {
+                assert_eq!(c.offset, next);
+                for (k, &f) in c.freqs.iter().enumerate() {
+                    assert_eq!(f, grid.at(next + k));
+                    assert_eq!(c.values[0][k], expect[next + k].value);
+                    let delays = c.delays.unwrap();
+                    assert_eq!(delays[0][k], expect[next + k].group_delay());
+                }
+                next += c.freqs.len();
+                Ok::<(), AnalysisError>(())
+            })
+            .unwrap();
+            assert_eq!(next, grid.len(), "chunk {chunk}, sequential {sequential}");
+        }
+    }
+
+    /// A frequency that fails in a later chunk: the chunks before it reach the sink, then
+    /// its error is returned; a sink that fails stops the run with its own error.
+    #[test]
+    fn failures_stop_the_stream() {
+        // ω·C overflows to infinity at 1e300 Hz: no usable pivot there.
+        let a = rc(1e10);
+        let ev = a.evaluator().unwrap();
+        let mut freqs: Vec<f64> = (1..=41).map(f64::from).collect();
+        freqs.extend([1e300, 1e301]);
+        let grid = Grid::list(freqs).unwrap();
+        let opts = SweepOptions::default();
+        let mut seen = Vec::new();
+        let err = run_chunks(&ev, &grid, &opts, 8, |c: Chunk<'_>| {
+            seen.push(c.offset);
+            Ok::<(), AnalysisError>(())
+        })
+        .unwrap_err();
+        assert_eq!(seen, [0, 8, 16, 24, 32]);
+        match err {
+            AnalysisError::Singular { frequency, .. } => assert_eq!(frequency, 1e300),
+            other => panic!("{other:?}"),
+        }
+        let mut calls = 0;
+        let err = run_chunks(&ev, &grid, &opts, 8, |_c: Chunk<'_>| {
+            calls += 1;
+            if calls == 2 {
+                Err(AnalysisError::BadResponse {
+                    response: "sink".into(),
+                    reason: "full".into(),
+                })
+            } else {
+                Ok(())
+            }
+        })
+        .unwrap_err();
+        assert_eq!(calls, 2);
+        assert!(matches!(err, AnalysisError::BadResponse { .. }));
     }
 }
