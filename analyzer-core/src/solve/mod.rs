@@ -1,0 +1,482 @@
+//! Solving `(G + jωC)·x = b` at one frequency: the only module that touches faer.
+//!
+//! Three paths sit behind one trait, [`PointSolver`]:
+//!
+//! * [`SmallLu`]: complex LU with partial pivoting on fixed-size stack arrays, for the tiny
+//!   systems most filters produce (up to [`SMALL_MAX`] unknowns). faer's per-call overhead
+//!   dominates below about 20 unknowns; this kernel has none.
+//! * [`DenseLu`]: faer's dense LU with partial pivoting, factoring in place into a workspace
+//!   that is reused point after point.
+//! * [`SparseLu`]: faer's sparse LU; the symbolic analysis (COLAMD ordering, elimination tree)
+//!   is done once per sweep from the union pattern of `G` and `C` and shared by all workers;
+//!   each point only refactors numerically.
+//!
+//! faer reports no numerical singularity. Every path therefore checks its pivots: a pivot that
+//! is exactly zero or not finite is reported as [`Singular`] with the column (unknown) it
+//! occurred in, so the caller can name the node or part to blame. Residuals are checked by the
+//! caller ([`solve_checked`]), with one step of iterative refinement when they are poor.
+
+mod dense;
+mod small;
+mod sparse;
+
+pub use dense::DenseLu;
+pub use small::{LaneLu, SmallLu};
+pub use sparse::SparseLu;
+
+use crate::stamp::System;
+use num_complex::Complex64;
+use small::{make_small, make_small_lanes};
+use sparse::SparseShared;
+use std::sync::Arc;
+
+/// Largest system the stack kernel serves. Measured with
+/// `cargo bench -p analyzer-core --bench solve` on the 2-core CI machine, factor + solve per
+/// point: 9 unknowns 0.50 µs (sparse 1.04, dense 1.37), 13 unknowns 1.28 µs (sparse 1.64),
+/// 15 unknowns 1.44 µs (sparse 2.12); at 17 the sparse path takes 1.68 µs and dense 3.15.
+///
+/// Above it [`SolverKind::Auto`] goes straight to the sparse path: network matrices are
+/// sparse (a few entries per row), and faer's sparse LU beat its dense LU at 17 unknowns
+/// (1.68 µs vs 3.15 µs per factor + solve) and at 33 (3.9 µs vs 12.9 µs). The dense path
+/// stays available as an override.
+pub const SMALL_MAX: usize = 16;
+
+/// Which solver path to use.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum SolverKind {
+    /// Chosen by size: small kernel, dense faer, sparse faer.
+    #[default]
+    Auto,
+    /// The stack kernel (only up to [`SMALL_MAX`] unknowns; above, the sparse path).
+    Small,
+    /// faer dense LU.
+    Dense,
+    /// faer sparse LU with symbolic reuse.
+    Sparse,
+}
+
+impl SolverKind {
+    /// The path Auto resolves to for `n` unknowns.
+    pub fn resolve(self, n: usize) -> SolverKind {
+        match self {
+            SolverKind::Auto if n <= SMALL_MAX => SolverKind::Small,
+            // The stack kernel has no instance above SMALL_MAX; sparse is the faster fallback.
+            SolverKind::Auto | SolverKind::Small if n > SMALL_MAX => SolverKind::Sparse,
+            k => k,
+        }
+    }
+}
+
+/// A zero or non-finite pivot: the system is singular (or numerically so) at this point.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Singular {
+    /// The unknown whose column had no usable pivot.
+    pub column: usize,
+}
+
+/// Factors `G + jωC` at one frequency and solves against right-hand sides.
+pub trait PointSolver: Send {
+    /// Forms and factors the matrix at `omega`. On `Err`, the factorisation is unusable.
+    fn factor(&mut self, omega: f64) -> Result<(), Singular>;
+    /// Solves in place with the last factorisation; `rhs` has length n.
+    fn solve(&mut self, rhs: &mut [Complex64]);
+}
+
+/// Shared, once-per-sweep data that a solver path needs (the sparse symbolic analysis).
+#[derive(Clone)]
+pub struct SolverPlan<'a> {
+    sys: &'a System,
+    kind: SolverKind,
+    sparse: Option<Arc<SparseShared>>,
+}
+
+impl<'a> SolverPlan<'a> {
+    /// Prepares the chosen path for `sys`; the sparse path does its symbolic analysis here.
+    /// Fails with [`Singular`] if the pattern is structurally singular.
+    pub fn new(sys: &'a System, kind: SolverKind) -> Result<Self, Singular> {
+        let kind = kind.resolve(sys.n);
+        let sparse = if kind == SolverKind::Sparse {
+            Some(Arc::new(SparseShared::new(sys)?))
+        } else {
+            None
+        };
+        Ok(SolverPlan { sys, kind, sparse })
+    }
+
+    /// The path in use.
+    pub fn kind(&self) -> SolverKind {
+        self.kind
+    }
+
+    /// A fresh solver with its own workspace (one per worker thread).
+    pub fn make(&self) -> Box<dyn PointSolver + 'a> {
+        let sys = self.sys;
+        match (self.kind, &self.sparse) {
+            (SolverKind::Sparse, Some(shared)) => Box::new(SparseLu::new(sys, shared.clone())),
+            (SolverKind::Small, _) => make_small(sys),
+            _ => Box::new(DenseLu::new(sys)),
+        }
+    }
+
+    /// A fresh [`LaneSolver`] with its own workspace: on the stack-kernel path [`LANES`]
+    /// frequencies per pass when `wide`, else one; faer's paths take one frequency per pass.
+    pub fn make_lanes(&self, wide: bool) -> Box<dyn LaneSolver + 'a> {
+        let sys = self.sys;
+        match self.kind {
+            SolverKind::Small => make_small_lanes(sys, wide),
+            _ => Box::new(OneLane::new(sys, self.make())),
+        }
+    }
+}
+
+/// Frequencies the wide stack kernel factors in one pass ([`SolverPlan::make_lanes`]).
+///
+/// Eight lanes of `f64` are two AVX-512, four AVX or eight SSE2 registers wide, so every
+/// elimination step is a handful of full vector operations whatever the system's size.
+/// Measured with `cargo bench -p analyzer-core --bench solve -- small/sweep-10k` on the
+/// 2-core CI machine; the figures are in the README's Performance section.
+pub const LANES: usize = 8;
+
+/// Why one lane of a [`LaneSolver`] failed: the lowest failing lane and its failure.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct LaneFailure {
+    /// Index of the lane (position in the `omegas` given to [`LaneSolver::factor`]).
+    pub lane: usize,
+    /// What went wrong there.
+    pub failure: SolveFailure,
+}
+
+/// Factors `G + jωC` at several frequencies at once and solves against one right-hand side
+/// that does not depend on ω. Vectors are lane-major: lane `l`'s solution is
+/// `out[l·n .. (l + 1)·n]`.
+pub trait LaneSolver: Send {
+    /// How many frequencies one [`LaneSolver::factor`] call takes at most.
+    fn lanes(&self) -> usize;
+    /// Forms and factors the matrix at each of `omegas` (1 ..= `lanes()` values).
+    fn factor(&mut self, omegas: &[f64]) -> Result<(), LaneFailure>;
+    /// Solves `A(ω_l)·x_l = rhs` for every factored lane, checks each lane's normwise
+    /// backward error with one step of iterative refinement above `RESIDUAL_LIMIT / 1000`
+    /// (as [`solve_checked`]), and writes the solutions to `out`.
+    fn solve_checked(
+        &mut self,
+        rhs: &[Complex64],
+        out: &mut [Complex64],
+    ) -> Result<(), LaneFailure>;
+    /// `dx_l/dω = −A(ω_l)⁻¹·(jC)·x_l` for each lane's solution `x_l` in `xs`, into `out`.
+    fn derivative(&mut self, xs: &[Complex64], out: &mut [Complex64]);
+}
+
+/// A [`PointSolver`] (faer's dense or sparse LU) seen as a one-lane [`LaneSolver`].
+struct OneLane<'a> {
+    sys: &'a System,
+    solver: Box<dyn PointSolver + 'a>,
+    omega: f64,
+    check: CheckScratch,
+}
+
+impl<'a> OneLane<'a> {
+    fn new(sys: &'a System, solver: Box<dyn PointSolver + 'a>) -> Self {
+        OneLane {
+            sys,
+            solver,
+            omega: 0.0,
+            check: CheckScratch::default(),
+        }
+    }
+}
+
+fn lane0(failure: SolveFailure) -> LaneFailure {
+    LaneFailure { lane: 0, failure }
+}
+
+impl LaneSolver for OneLane<'_> {
+    fn lanes(&self) -> usize {
+        1
+    }
+
+    fn factor(&mut self, omegas: &[f64]) -> Result<(), LaneFailure> {
+        self.omega = omegas.first().copied().unwrap_or(0.0);
+        self.solver
+            .factor(self.omega)
+            .map_err(|s| lane0(SolveFailure::Singular(s)))
+    }
+
+    fn solve_checked(
+        &mut self,
+        rhs: &[Complex64],
+        out: &mut [Complex64],
+    ) -> Result<(), LaneFailure> {
+        let n = self.sys.n;
+        let (Some(x), Some(b)) = (out.get_mut(..n), rhs.get(..n)) else {
+            return Err(lane0(SolveFailure::Untrustworthy {
+                residual: f64::INFINITY,
+            }));
+        };
+        x.copy_from_slice(b);
+        solve_checked(
+            self.solver.as_mut(),
+            self.sys,
+            self.omega,
+            x,
+            &mut self.check,
+        )
+        .map_err(lane0)
+    }
+
+    fn derivative(&mut self, xs: &[Complex64], out: &mut [Complex64]) {
+        let n = self.sys.n;
+        if let (Some(x), Some(dx)) = (xs.get(..n), out.get_mut(..n)) {
+            self.sys.multiply(self.omega, x, dx, true);
+            dx.iter_mut().for_each(|v| *v = -*v);
+            self.solver.solve(dx);
+        }
+    }
+}
+
+/// Why a checked solve failed.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum SolveFailure {
+    /// No usable pivot in this column.
+    Singular(Singular),
+    /// The solution is not finite or its residual stays poor after refinement.
+    Untrustworthy {
+        /// Relative backward error reached.
+        residual: f64,
+    },
+}
+
+/// Largest acceptable normwise relative backward error `‖b − A·x‖∞ / (‖A‖∞·‖x‖∞ + ‖b‖∞)`.
+pub const RESIDUAL_LIMIT: f64 = 1e-9;
+
+/// Scratch for [`solve_checked`], reused across points.
+#[derive(Clone, Debug, Default)]
+pub struct CheckScratch {
+    r: Vec<Complex64>,
+    ax: Vec<Complex64>,
+}
+
+/// Solves `rhs` in place with an already factored solver, checks the scaled residual, and
+/// does one step of iterative refinement when it exceeds `RESIDUAL_LIMIT / 1000`. Fails with
+/// [`SolveFailure::Untrustworthy`] when the result is not finite or the residual stays above
+/// [`RESIDUAL_LIMIT`]; on failure `rhs` holds no meaningful values.
+pub fn solve_checked(
+    solver: &mut dyn PointSolver,
+    sys: &System,
+    omega: f64,
+    rhs: &mut [Complex64],
+    scratch: &mut CheckScratch,
+) -> Result<(), SolveFailure> {
+    let n = sys.n;
+    scratch.r.clear();
+    scratch.r.extend_from_slice(rhs);
+    solver.solve(rhs);
+    let mut err = backward_error(sys, omega, rhs, scratch);
+    if err > RESIDUAL_LIMIT * 1e-3 {
+        // One step of refinement: r = b − A·x was left in scratch.ax by backward_error.
+        let mut d = scratch.ax.clone();
+        solver.solve(&mut d);
+        for (x, dx) in rhs.iter_mut().zip(&d) {
+            *x += dx;
+        }
+        err = backward_error(sys, omega, rhs, scratch);
+    }
+    if err.is_nan()
+        || err > RESIDUAL_LIMIT
+        || rhs
+            .iter()
+            .take(n)
+            .any(|v| !v.re.is_finite() || !v.im.is_finite())
+    {
+        return Err(SolveFailure::Untrustworthy { residual: err });
+    }
+    Ok(())
+}
+
+/// Normwise relative backward error of `x` against `b` (kept in `scratch.r`):
+/// `‖b − A·x‖∞ / (‖A‖∞·‖x‖∞ + ‖b‖∞)`, entries measured as |Re| + |Im| and `‖A‖∞` from the
+/// row sums of |G| and |C| kept by the system. Leaves `b − A·x` in `scratch.ax`.
+fn backward_error(sys: &System, omega: f64, x: &[Complex64], scratch: &mut CheckScratch) -> f64 {
+    let n = sys.n;
+    scratch.ax.resize(n, Complex64::new(0.0, 0.0));
+    sys.multiply(omega, x, &mut scratch.ax, false);
+    let l1 = |z: Complex64| z.re.abs() + z.im.abs();
+    let (mut num, mut bnorm, mut xnorm): (f64, f64, f64) = (0.0, 0.0, 0.0);
+    for ((ax, b), xi) in scratch.ax.iter_mut().zip(&scratch.r).zip(x).take(n) {
+        let r = *b - *ax;
+        *ax = r;
+        num = num.max(l1(r));
+        bnorm = bnorm.max(l1(*b));
+        xnorm = xnorm.max(l1(*xi));
+    }
+    let den = sys.norm_inf(omega) * xnorm + bnorm;
+    if num.is_nan() || den.is_nan() {
+        return f64::INFINITY;
+    }
+    if den == 0.0 {
+        return if num == 0.0 { 0.0 } else { f64::INFINITY };
+    }
+    num / den
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::network::NetworkBuilder;
+
+    fn ladder(sections: usize) -> System {
+        let mut b = NetworkBuilder::new("ladder");
+        b.voltage_source("V1", "n0", "gnd", 1.0.into()).unwrap();
+        for k in 0..sections {
+            let (a, m, z) = (format!("n{k}"), format!("m{k}"), format!("n{}", k + 1));
+            b.resistor(&format!("R{k}"), &a, &m, 10.0 + k as f64)
+                .unwrap();
+            b.inductor(&format!("L{k}"), &m, &z, 1e-3 * (1.0 + 0.1 * k as f64))
+                .unwrap();
+            b.capacitor(&format!("C{k}"), &z, "gnd", 1e-6).unwrap();
+        }
+        b.resistor("RL", &format!("n{sections}"), "gnd", 50.0)
+            .unwrap();
+        System::assemble(&b.build().unwrap())
+    }
+
+    /// Every path gives the same solution on every size the small kernel serves and beyond.
+    #[test]
+    fn all_paths_agree() {
+        for sections in [1, 2, 3, 4, 5, 8, 12, 20] {
+            let sys = ladder(sections);
+            let mut reference: Option<Vec<Complex64>> = None;
+            for kind in [SolverKind::Small, SolverKind::Dense, SolverKind::Sparse] {
+                let plan = SolverPlan::new(&sys, kind).unwrap();
+                let mut s = plan.make();
+                let omega = 2.0 * std::f64::consts::PI * 3e3;
+                s.factor(omega).unwrap();
+                let mut x = sys.b.clone();
+                let mut scratch = CheckScratch::default();
+                solve_checked(s.as_mut(), &sys, omega, &mut x, &mut scratch).unwrap();
+                match &reference {
+                    None => reference = Some(x),
+                    Some(r) => {
+                        for (a, b) in r.iter().zip(&x) {
+                            assert!(
+                                (a - b).norm() <= 1e-12 * (1.0 + a.norm()),
+                                "{kind:?} n={}",
+                                sys.n
+                            );
+                        }
+                    }
+                }
+            }
+        }
+    }
+
+    /// A network with exactly `n` unknowns (all node voltages): a current source into node
+    /// 1, a chain of resistors and capacitors, and a capacitor and resistor to ground at
+    /// every node, with values that vary so pivoting has work to do.
+    fn chain(n: usize) -> System {
+        let mut b = NetworkBuilder::new("chain");
+        b.current_source("I1", "gnd", "n1", Complex64::new(1e-3, 2e-4))
+            .unwrap();
+        for k in 1..=n {
+            let node = format!("n{k}");
+            b.resistor(&format!("Rg{k}"), &node, "gnd", 100.0 * (1.0 + k as f64))
+                .unwrap();
+            b.capacitor(
+                &format!("Cg{k}"),
+                &node,
+                "gnd",
+                1e-9 * (1.0 + (k % 3) as f64),
+            )
+            .unwrap();
+            if k > 1 {
+                let prev = format!("n{}", k - 1);
+                b.resistor(&format!("R{k}"), &prev, &node, 50.0 * k as f64)
+                    .unwrap();
+                b.capacitor(&format!("C{k}"), &prev, &node, 2e-9 / k as f64)
+                    .unwrap();
+            }
+        }
+        System::assemble(&b.build().unwrap())
+    }
+
+    /// The stack kernel against faer's dense and sparse LU on every size it serves.
+    #[test]
+    fn small_kernel_matches_faer_on_every_size_it_serves() {
+        for n in 1..=SMALL_MAX {
+            let sys = chain(n);
+            assert_eq!(sys.n, n);
+            assert_eq!(SolverKind::Auto.resolve(n), SolverKind::Small);
+            let mut results = Vec::new();
+            for kind in [SolverKind::Small, SolverKind::Dense, SolverKind::Sparse] {
+                let plan = SolverPlan::new(&sys, kind).unwrap();
+                assert_eq!(plan.kind(), kind);
+                let mut s = plan.make();
+                let omega = 2.0 * std::f64::consts::PI * 7.3e4;
+                s.factor(omega).unwrap();
+                let mut x = sys.b.clone();
+                solve_checked(
+                    s.as_mut(),
+                    &sys,
+                    omega,
+                    &mut x,
+                    &mut CheckScratch::default(),
+                )
+                .unwrap();
+                results.push(x);
+            }
+            for other in &results[1..] {
+                for (a, b) in results[0].iter().zip(other) {
+                    assert!(
+                        (a - b).norm() <= 1e-12 * a.norm().max(1e-30),
+                        "n = {n}: {a} vs {b}"
+                    );
+                }
+            }
+        }
+        assert_eq!(SolverKind::Auto.resolve(SMALL_MAX + 1), SolverKind::Sparse);
+    }
+
+    /// The wide stack kernel, lane by lane, gives the very solution and derivative of the
+    /// one-lane kernel, on every size it serves, for a full and a partial group of lanes.
+    #[test]
+    fn wide_kernel_matches_one_lane_bit_for_bit() {
+        for n in 1..=SMALL_MAX {
+            let sys = chain(n);
+            let plan = SolverPlan::new(&sys, SolverKind::Small).unwrap();
+            let mut wide = plan.make_lanes(true);
+            let mut one = plan.make_lanes(false);
+            assert_eq!((wide.lanes(), one.lanes()), (LANES, 1));
+            for count in [LANES, 3] {
+                let omegas: Vec<f64> = (0..count).map(|k| 2e3 * 2.3f64.powi(k as i32)).collect();
+                let mut xs = vec![Complex64::default(); n * LANES];
+                let mut dxs = xs.clone();
+                wide.factor(&omegas).unwrap();
+                wide.solve_checked(&sys.b, &mut xs).unwrap();
+                wide.derivative(&xs, &mut dxs);
+                for (l, &w) in omegas.iter().enumerate() {
+                    let (mut x, mut dx) =
+                        (vec![Complex64::default(); n], vec![Complex64::default(); n]);
+                    one.factor(&[w]).unwrap();
+                    one.solve_checked(&sys.b, &mut x).unwrap();
+                    one.derivative(&x, &mut dx);
+                    assert_eq!(&xs[l * n..(l + 1) * n], &x[..], "n = {n}, lane {l}");
+                    assert_eq!(&dxs[l * n..(l + 1) * n], &dx[..], "n = {n}, lane {l}");
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn zero_pivot_names_the_column() {
+        let mut b = NetworkBuilder::new("t");
+        b.voltage_source("V1", "a", "gnd", 1.0.into()).unwrap();
+        b.capacitor("C1", "a", "b", 1e-6).unwrap();
+        let net = b.build().unwrap();
+        let sys = System::assemble(&net);
+        for kind in [SolverKind::Small, SolverKind::Dense] {
+            let plan = SolverPlan::new(&sys, kind).unwrap();
+            let mut s = plan.make();
+            // At DC node b floats: its column is all zero.
+            assert!(s.factor(0.0).is_err());
+        }
+    }
+}
