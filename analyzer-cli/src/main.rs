@@ -100,7 +100,8 @@ struct SweepArgs {
     /// Skip the SVG plots.
     #[arg(long)]
     no_plot: bool,
-    /// Solver path (default: chosen by size).
+    /// Solver path (default: chosen by size and structure: small up to 16 unknowns, band
+    /// when the reordered matrix is narrow, sparse otherwise).
     #[arg(long, value_enum, default_value_t = SolverArg::Auto)]
     solver: SolverArg,
     /// Worker threads (default: all cores).
@@ -115,6 +116,7 @@ struct SweepArgs {
 enum SolverArg {
     Auto,
     Small,
+    Band,
     Dense,
     Sparse,
 }
@@ -287,6 +289,7 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
     let solver = match args.solver {
         SolverArg::Auto => SolverKind::Auto,
         SolverArg::Small => SolverKind::Small,
+        SolverArg::Band => SolverKind::Band,
         SolverArg::Dense => SolverKind::Dense,
         SolverArg::Sparse => SolverKind::Sparse,
     };

@@ -287,3 +287,58 @@ fn check_applies_the_zero_hertz_checks_when_the_sweep_includes_dc() {
     let stderr = String::from_utf8_lossy(&o.stderr).to_string();
     assert!(stderr.ends_with(": node out has no path to gnd at 0 Hz: it is reached only through capacitor(s) C0, C1, which are open there; start the sweep above 0 Hz or add a DC path (e.g. a large resistor to gnd)\n"), "{stderr}");
 }
+
+/// Every `--solver` path gives the same numbers on every example design (the real binary,
+/// CSV to stdout), and the summary names the path that ran.
+#[test]
+fn every_solver_path_gives_the_same_csv() {
+    let parse = |text: &str| -> Vec<Vec<f64>> {
+        text.lines()
+            .skip(1)
+            .map(|l| l.split(',').map(|x| x.parse().unwrap()).collect())
+            .collect()
+    };
+    for path in designs() {
+        let run = |solver: &str| {
+            let out = Command::cargo_bin("analyzer")
+                .unwrap()
+                .args(["sweep", path.to_str().unwrap(), "-o", "-", "--points", "97"])
+                .args(["--solver", solver])
+                .assert()
+                .success();
+            let o = out.get_output();
+            (
+                parse(&String::from_utf8_lossy(&o.stdout)),
+                String::from_utf8_lossy(&o.stderr).to_string(),
+            )
+        };
+        let (reference, _) = run("dense");
+        for (solver, shown) in [
+            ("small", None),
+            ("band", Some("Band solver")),
+            ("sparse", Some("Sparse solver")),
+            ("auto", None),
+        ] {
+            let (rows, summary) = run(solver);
+            if let Some(s) = shown {
+                assert!(summary.contains(s), "{solver}: {summary}");
+            }
+            assert_eq!(rows.len(), reference.len());
+            for (a, b) in rows.iter().zip(&reference) {
+                // Columns: f, then per response dB, phase, re, im. Compare re and im
+                // against the response's magnitude.
+                for r in 0..(a.len() - 1) / 4 {
+                    let (re, im) = (1 + 4 * r + 2, 1 + 4 * r + 3);
+                    let mag = b[re].hypot(b[im]);
+                    let d = (a[re] - b[re]).hypot(a[im] - b[im]);
+                    assert!(
+                        d <= 1e-9 * mag,
+                        "{} --solver {solver} at {} Hz: {d} vs |H| {mag}",
+                        path.display(),
+                        a[0]
+                    );
+                }
+            }
+        }
+    }
+}

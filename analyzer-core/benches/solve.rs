@@ -1,8 +1,10 @@
 //! Criterion benches: assembly, factorisation, solve, one point and a whole sweep, timed
-//! apart, at 3, 5, 9, 17 and 33 unknowns and at 1,000 / 10,000 / 100,000 ladder sections.
+//! apart, at 3 to 43 unknowns and at 1,000 / 10,000 / 100,000 ladder sections; and the
+//! families the automatic solver choice was measured on (RC meshes of growing width, fully
+//! connected networks).
 //! Run: `cargo bench -p analyzer-core --bench solve` (add a filter, e.g. `-- small/9`).
 
-use analyzer_core::ladders::{butterworth_ladder, ladder_gain, rlc_ladder};
+use analyzer_core::ladders::{butterworth_ladder, full_mesh, ladder_gain, rc_mesh, rlc_ladder};
 use analyzer_core::network::Network;
 use analyzer_core::response::{Analysis, ResponseSpec};
 use analyzer_core::solve::{SolverKind, SolverPlan};
@@ -11,7 +13,7 @@ use analyzer_core::sweep::{self, Grid, SweepOptions};
 use criterion::{criterion_group, criterion_main, BatchSize, BenchmarkId, Criterion};
 use std::time::Duration;
 
-/// The small networks: unknown counts 3, 5, 9, 17, 33.
+/// The small networks: unknown counts 3, 5, 9, 13, 15, 19, 43.
 pub fn small_networks() -> Vec<(usize, Network, ResponseSpec)> {
     let mut v = Vec::new();
     let net = rlc_ladder(0, 1.0, 1.0, 1.0, 50.0, 50.0).unwrap();
@@ -36,8 +38,16 @@ fn small(c: &mut Criterion) {
             b.iter(|| System::assemble(net))
         });
         let sys = System::assemble(&net);
-        for kind in [SolverKind::Small, SolverKind::Dense, SolverKind::Sparse] {
+        for kind in [
+            SolverKind::Small,
+            SolverKind::Band,
+            SolverKind::Dense,
+            SolverKind::Sparse,
+        ] {
             let plan = SolverPlan::new(&sys, kind).unwrap();
+            if plan.kind() != kind {
+                continue; // the stack kernel above its sizes
+            }
             let mut s = plan.make();
             g.bench_function(BenchmarkId::new(format!("factor-{kind:?}"), n), |b| {
                 b.iter(|| s.factor(omega).unwrap())
@@ -80,19 +90,25 @@ fn ladders(c: &mut Criterion) {
         g.bench_function(BenchmarkId::new("symbolic", sections), |b| {
             b.iter(|| SolverPlan::new(&sys, SolverKind::Sparse).unwrap().kind())
         });
-        let plan = SolverPlan::new(&sys, SolverKind::Sparse).unwrap();
-        let mut s = plan.make();
-        g.bench_function(BenchmarkId::new("factor", sections), |b| {
-            b.iter(|| s.factor(omega).unwrap())
+        g.bench_function(BenchmarkId::new("ordering", sections), |b| {
+            b.iter(|| SolverPlan::new(&sys, SolverKind::Band).unwrap().kind())
         });
-        s.factor(omega).unwrap();
-        g.bench_function(BenchmarkId::new("solve", sections), |b| {
-            b.iter_batched(
-                || sys.b.clone(),
-                |mut x| s.solve(&mut x),
-                BatchSize::LargeInput,
-            )
-        });
+        for kind in [SolverKind::Band, SolverKind::Sparse] {
+            let plan = SolverPlan::new(&sys, kind).unwrap();
+            let mut s = plan.make();
+            g.bench_function(
+                BenchmarkId::new(format!("factor-{kind:?}"), sections),
+                |b| b.iter(|| s.factor(omega).unwrap()),
+            );
+            s.factor(omega).unwrap();
+            g.bench_function(BenchmarkId::new(format!("solve-{kind:?}"), sections), |b| {
+                b.iter_batched(
+                    || sys.b.clone(),
+                    |mut x| s.solve(&mut x),
+                    BatchSize::LargeInput,
+                )
+            });
+        }
         let spec = ladder_gain(&net, sections).unwrap();
         let a = Analysis::new(net, vec![spec]).unwrap();
         let ev = a.evaluator().unwrap();
@@ -109,5 +125,58 @@ fn ladders(c: &mut Criterion) {
     g.finish();
 }
 
-criterion_group!(benches, small, ladders);
+/// Band against sparse on RC meshes of growing width (about 20,000 unknowns each): where
+/// the automatic choice should switch from the band path to the sparse one.
+fn meshes(c: &mut Criterion) {
+    let mut g = c.benchmark_group("mesh");
+    g.sample_size(10)
+        .measurement_time(Duration::from_secs(2))
+        .warm_up_time(Duration::from_millis(300));
+    let omega = 2.0 * std::f64::consts::PI * 1e4;
+    for width in [2, 4, 8, 12, 16, 24, 32, 64] {
+        let net = rc_mesh(width, 20_000 / width, 100.0, 1e-9).unwrap();
+        let sys = System::assemble(&net);
+        for kind in [SolverKind::Band, SolverKind::Sparse] {
+            let plan = SolverPlan::new(&sys, kind).unwrap();
+            let mut s = plan.make();
+            let mut x = sys.b.clone();
+            g.bench_function(BenchmarkId::new(format!("{kind:?}"), width), |b| {
+                b.iter(|| {
+                    s.factor(omega).unwrap();
+                    x.copy_from_slice(&sys.b);
+                    s.solve(&mut x);
+                })
+            });
+        }
+    }
+    g.finish();
+}
+
+/// Dense, band and sparse paths on fully connected networks (a dense matrix): where the
+/// automatic choice takes faer's dense LU.
+fn full(c: &mut Criterion) {
+    let mut g = c.benchmark_group("full");
+    g.sample_size(10)
+        .measurement_time(Duration::from_secs(1))
+        .warm_up_time(Duration::from_millis(200));
+    let omega = 2.0 * std::f64::consts::PI * 1e4;
+    for nodes in [20, 40, 80, 160, 320] {
+        let sys = System::assemble(&full_mesh(nodes, 100.0, 1e-9).unwrap());
+        for kind in [SolverKind::Dense, SolverKind::Band, SolverKind::Sparse] {
+            let plan = SolverPlan::new(&sys, kind).unwrap();
+            let mut s = plan.make();
+            let mut x = sys.b.clone();
+            g.bench_function(BenchmarkId::new(format!("{kind:?}"), sys.n), |b| {
+                b.iter(|| {
+                    s.factor(omega).unwrap();
+                    x.copy_from_slice(&sys.b);
+                    s.solve(&mut x);
+                })
+            });
+        }
+    }
+    g.finish();
+}
+
+criterion_group!(benches, small, ladders, meshes, full);
 criterion_main!(benches);

@@ -83,3 +83,52 @@ pub fn butterworth_ladder(
     let net = b.build()?;
     Ok((net, spec))
 }
+
+/// An RC mesh `width` nodes across and `length` along: resistors `r` between neighbours in
+/// both directions and a capacitor `c` from every node to ground, driven by a 1 V source
+/// through `r` at one corner and loaded by `r` at the opposite one. It stands in for a
+/// resistive sheet or a bundle of coupled lines; ordered along its length its band is
+/// `width` wide, so it is the family on which the band and sparse paths are weighed.
+/// Nodes are `m{i}_{j}` (`i < width`, `j < length`).
+pub fn rc_mesh(width: usize, length: usize, r: f64, c: f64) -> Result<Network, NetworkError> {
+    let mut b = NetworkBuilder::new(format!("{width}×{length} RC mesh"));
+    let name = |i: usize, j: usize| format!("m{i}_{j}");
+    b.voltage_source("V1", "src", "gnd", 1.0.into())?;
+    b.resistor("Rs", "src", &name(0, 0), r)?;
+    for j in 0..length {
+        for i in 0..width {
+            b.capacitor(&format!("C{i}_{j}"), &name(i, j), "gnd", c)?;
+            if i + 1 < width {
+                b.resistor(&format!("Ra{i}_{j}"), &name(i, j), &name(i + 1, j), r)?;
+            }
+            if j + 1 < length {
+                b.resistor(&format!("Rb{i}_{j}"), &name(i, j), &name(i, j + 1), r)?;
+            }
+        }
+    }
+    let last = name(width.saturating_sub(1), length.saturating_sub(1));
+    b.resistor("RL", &last, "gnd", r)?;
+    b.build()
+}
+
+/// A network with every pair of its `nodes` nodes joined by a resistor (values spread from
+/// `r` upward) and a capacitor `c` from each node to ground, driven by a 1 V source at the
+/// first: a dense matrix, the family on which faer's dense LU is weighed against the band
+/// and sparse paths. Nodes are `n0` … `n{nodes − 1}`.
+pub fn full_mesh(nodes: usize, r: f64, c: f64) -> Result<Network, NetworkError> {
+    let mut b = NetworkBuilder::new(format!("{nodes}-node full mesh"));
+    b.voltage_source("V1", "n0", "gnd", 1.0.into())?;
+    for i in 0..nodes {
+        for j in i + 1..nodes {
+            let spread = 1.0 + ((7 * i + 3 * j) % 11) as f64 / 10.0;
+            b.resistor(
+                &format!("R{i}_{j}"),
+                &format!("n{i}"),
+                &format!("n{j}"),
+                r * spread,
+            )?;
+        }
+        b.capacitor(&format!("C{i}"), &format!("n{i}"), "gnd", c)?;
+    }
+    b.build()
+}

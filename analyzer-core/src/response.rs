@@ -395,7 +395,11 @@ impl<'a> Evaluator<'a> {
     pub fn workspace(&self) -> Workspace<'a> {
         let a = self.analysis;
         let one = self.plan.make_lanes(false);
-        let wide = Some(self.plan.make_lanes(true)).filter(|w| w.lanes() > 1);
+        // Only the stack kernel takes several frequencies per pass; a large system's second
+        // solver would be costly to make for nothing.
+        let wide = (self.plan.kind() == SolverKind::Small)
+            .then(|| self.plan.make_lanes(true))
+            .filter(|w| w.lanes() > 1);
         let lanes = wide.as_ref().map_or(1, |w| w.lanes());
         Workspace {
             one,

@@ -109,7 +109,7 @@ impl<const N: usize, const L: usize> LaneVec<N, L> {
 ///
 /// `G` and `C` are laid out densely once; forming `G + jωC` is a copy and a scaled copy. The
 /// residual check runs over the sparse pattern in the system's order, matching
-/// [`solve_checked`] bit for bit.
+/// [`solve_checked`](super::solve_checked) bit for bit.
 pub struct LaneLu<const N: usize, const L: usize> {
     g: [[f64; N]; N],
     c: [[f64; N]; N],

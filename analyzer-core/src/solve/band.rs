@@ -1,0 +1,332 @@
+//! Banded LU with partial pivoting, after a bandwidth-reducing ordering.
+//!
+//! Ladders, lines and chains (the long generated networks that stand in for a cable, an
+//! on-chip line or an RC chain) have unknowns that couple only to their neighbours along the
+//! chain. Once the unknowns are put in that order, every entry of `A = G + jωC` lies within
+//! `kl` diagonals below and `ku` above the main one, and LU with partial pivoting keeps `L`
+//! within `kl` below and `U` within `kl + ku` above (Golub & Van Loan, *Matrix Computations*,
+//! §4.3; LAPACK's `gbtf2`/`gbtrs` are the same scheme). Factoring costs about
+//! `n·kl·(kl + ku)` complex multiply-adds and solving `n·(2kl + ku)`, with no pattern to
+//! rediscover at each point: for a ladder (`kl = ku = 1`) that is within a small factor of a
+//! plain tridiagonal solve.
+//!
+//! The order is the reverse Cuthill–McKee ordering of the pattern of `A + Aᵀ` (sprs), found
+//! once per sweep with the band's width and the storage slot of every stored entry, and
+//! shared by all workers. Row `i` of the band (in the new order) keeps columns
+//! `i − kl ..= i + ku + kl` at offsets `0 ..= 2kl + ku`; `L`'s multipliers stay where they
+//! were computed (row interchanges are applied to the right of the pivot only), so the
+//! forward solve interleaves the interchanges with the eliminations, as `gbtrs` does.
+
+use super::{PointSolver, Singular};
+use crate::stamp::System;
+use num_complex::Complex64;
+use std::sync::Arc;
+
+/// The ordering and band layout of one system, shared by every worker.
+#[derive(Clone, Debug, PartialEq)]
+pub struct BandLayout {
+    n: usize,
+    /// Diagonals below the main one.
+    pub kl: usize,
+    /// Diagonals above the main one (before pivoting adds `kl` more).
+    pub ku: usize,
+    /// Old index of the unknown at each new position.
+    order: Vec<usize>,
+    /// `G` and `C` in the new order as bands of `kl + ku + 1` entries per row (row i holds
+    /// columns i − kl ..= i + ku), so forming `G + jωC` at a point is one streaming pass.
+    g: Vec<f64>,
+    c: Vec<f64>,
+}
+
+impl BandLayout {
+    /// The reverse Cuthill–McKee order of `sys` and its band. None when the pattern does not
+    /// make a valid matrix (which assembly never produces).
+    pub fn new(sys: &System) -> Option<BandLayout> {
+        let n = sys.n;
+        // The symmetric pattern of A + Aᵀ, diagonal included, as CSR with sorted rows.
+        let mut pairs: Vec<(usize, usize)> = sys
+            .pattern
+            .iter()
+            .flat_map(|&(r, c)| [(r, c), (c, r)])
+            .chain((0..n).map(|i| (i, i)))
+            .filter(|&(r, c)| r < n && c < n)
+            .collect();
+        pairs.sort_unstable();
+        pairs.dedup();
+        let mut indptr = vec![0usize; n + 1];
+        for &(r, _) in &pairs {
+            indptr[r + 1] += 1;
+        }
+        for i in 0..n {
+            indptr[i + 1] += indptr[i];
+        }
+        let indices: Vec<usize> = pairs.iter().map(|&(_, c)| c).collect();
+        let data = vec![1u8; indices.len()];
+        let pattern = sprs::CsMat::try_new((n, n), indptr, indices, data).ok()?;
+        let order: Vec<usize> = if n == 0 {
+            Vec::new()
+        } else {
+            sprs::linalg::reverse_cuthill_mckee(pattern.view())
+                .perm
+                .vec()
+        };
+        let mut position = vec![usize::MAX; n];
+        for (new, &old) in order.iter().enumerate() {
+            *position.get_mut(old)? = new;
+        }
+        if position.contains(&usize::MAX) {
+            return None;
+        }
+        let (mut kl, mut ku) = (0, 0);
+        for &(r, c) in &sys.pattern {
+            let (i, j) = (position[r], position[c]);
+            kl = kl.max(i.saturating_sub(j));
+            ku = ku.max(j.saturating_sub(i));
+        }
+        let wa = kl + ku + 1;
+        let (mut g, mut c) = (vec![0.0; n * wa], vec![0.0; n * wa]);
+        for ((&(r, col), &gv), &cv) in sys.pattern.iter().zip(&sys.g).zip(&sys.c) {
+            let (i, j) = (position[r], position[col]);
+            let at = i * wa + (j + kl - i);
+            g[at] += gv;
+            c[at] += cv;
+        }
+        Some(BandLayout {
+            n,
+            kl,
+            ku,
+            order,
+            g,
+            c,
+        })
+    }
+
+    /// Entries per row of the band storage.
+    pub fn width(&self) -> usize {
+        2 * self.kl + self.ku + 1
+    }
+
+    /// Complex multiply-adds of one factorisation, about: the cost the automatic choice
+    /// weighs against the sparse path.
+    pub fn factor_work(&self) -> f64 {
+        self.n as f64 * (self.kl as f64) * ((self.kl + self.ku) as f64 + 1.0)
+    }
+}
+
+/// Banded LU with partial pivoting at one frequency, with its own band storage.
+pub struct BandLu {
+    layout: Arc<BandLayout>,
+    /// Row-major band: row i holds columns i − kl ..= i + ku + kl.
+    ab: Vec<Complex64>,
+    /// Row interchanged with row k at step k.
+    ipiv: Vec<usize>,
+    /// 1/U(k, k).
+    inv_diag: Vec<Complex64>,
+    /// Vectors in the band's order.
+    work: Vec<Complex64>,
+    work2: Vec<Complex64>,
+    ok: bool,
+}
+
+impl BandLu {
+    /// A solver with its own band storage for a system laid out by `layout`.
+    pub fn new(layout: Arc<BandLayout>) -> Self {
+        let n = layout.n;
+        BandLu {
+            ab: vec![Complex64::default(); n * layout.width()],
+            ipiv: vec![0; n],
+            inv_diag: vec![Complex64::default(); n],
+            work: vec![Complex64::default(); n],
+            work2: vec![Complex64::default(); n],
+            layout,
+            ok: false,
+        }
+    }
+}
+
+/// `1/z` without overflow or underflow in the intermediate |z|² (scaled by the larger
+/// part), with two divisions.
+#[inline]
+fn recip(z: Complex64) -> Complex64 {
+    let inv_s = 1.0 / z.re.abs().max(z.im.abs());
+    let (a, b) = (z.re * inv_s, z.im * inv_s);
+    let d = inv_s / (a * a + b * b);
+    Complex64::new(a * d, -b * d)
+}
+
+impl PointSolver for BandLu {
+    fn factor(&mut self, omega: f64) -> Result<(), Singular> {
+        let BandLayout {
+            n,
+            kl,
+            ku,
+            ref order,
+            ref g,
+            ref c,
+        } = *self.layout;
+        let (w, wa) = (2 * kl + ku + 1, kl + ku + 1);
+        self.ok = false;
+        // Row i of G + jωC goes into the band (with zeros where pivoting may fill in) just
+        // before step i − kl first reads it, while the band's neighbourhood is in cache.
+        let fill = |ab: &mut [Complex64], i: usize| {
+            let (row, gr, cr) = (
+                &mut ab[i * w..(i + 1) * w],
+                &g[i * wa..(i + 1) * wa],
+                &c[i * wa..(i + 1) * wa],
+            );
+            let (a, rest) = row.split_at_mut(wa);
+            for ((v, &g), &c) in a.iter_mut().zip(gr).zip(cr) {
+                *v = Complex64::new(g, omega * c);
+            }
+            rest.fill(Complex64::default());
+        };
+        for i in 0..kl.min(n) {
+            fill(&mut self.ab, i);
+        }
+        let ab = &mut self.ab;
+        let blame = |k: usize| Singular {
+            column: order.get(k).copied().unwrap_or(k),
+        };
+        // Last column that row k may reach after the interchanges so far.
+        let mut ju = 0;
+        for k in 0..n {
+            let last_row = (k + kl).min(n - 1);
+            if k + kl < n {
+                fill(ab, k + kl);
+            }
+            // Pivot: the largest |Re| + |Im| in column k on or below the diagonal (a NaN on
+            // the diagonal stays the pivot and is reported).
+            let d = ab[k * w + kl];
+            let (mut p, mut best) = (k, d.re.abs() + d.im.abs());
+            for i in k + 1..=last_row {
+                let v = ab[i * w + k + kl - i];
+                let m = v.re.abs() + v.im.abs();
+                if m > best {
+                    (p, best) = (i, m);
+                }
+            }
+            if best == 0.0 || !best.is_finite() {
+                return Err(blame(k));
+            }
+            self.ipiv[k] = p;
+            ju = ju.max((p + ku).min(n - 1));
+            if p != k {
+                for j in k..=ju {
+                    ab.swap(k * w + j + kl - k, p * w + j + kl - p);
+                }
+            }
+            let inv = recip(ab[k * w + kl]);
+            self.inv_diag[k] = inv;
+            let (upper, lower) = ab.split_at_mut((k + 1) * w);
+            let pivot_row = &upper[k * w + kl..k * w + kl + (ju - k) + 1];
+            for i in k + 1..=last_row {
+                let row = &mut lower[(i - k - 1) * w..(i - k) * w];
+                let at = k + kl - i;
+                let m = row[at] * inv;
+                row[at] = m;
+                if m.re == 0.0 && m.im == 0.0 {
+                    continue;
+                }
+                // Columns k + 1 ..= ju of row i start at offset at + 1.
+                for (x, &u) in row[at + 1..=at + (ju - k)].iter_mut().zip(&pivot_row[1..]) {
+                    *x -= m * u;
+                }
+            }
+        }
+        self.ok = true;
+        Ok(())
+    }
+
+    fn solve(&mut self, rhs: &mut [Complex64]) {
+        let BandLayout {
+            n,
+            kl,
+            ku,
+            ref order,
+            ..
+        } = *self.layout;
+        if !self.ok || rhs.len() != n {
+            return;
+        }
+        let w = 2 * kl + ku + 1;
+        let (ab, y) = (&self.ab, &mut self.work);
+        for (v, &old) in y.iter_mut().zip(order) {
+            *v = rhs[old];
+        }
+        // L: interchanges and eliminations in the order they were made.
+        for k in 0..n {
+            let p = self.ipiv[k];
+            if p != k {
+                y.swap(k, p);
+            }
+            let (head, tail) = y.split_at_mut(k + 1);
+            let yk = head[k];
+            if yk.re == 0.0 && yk.im == 0.0 {
+                continue;
+            }
+            // Column k's multipliers sit in rows k + 1 ..= k + kl, one slot further left in
+            // each row.
+            for (t, yi) in tail.iter_mut().take(kl).enumerate() {
+                *yi -= ab[(k + 1 + t) * w + kl - 1 - t] * yk;
+            }
+        }
+        // U: back substitution over the widened upper band (diagonal at offset kl).
+        for k in (0..n).rev() {
+            let row = &ab[k * w + kl..(k + 1) * w];
+            let (head, tail) = y.split_at_mut(k + 1);
+            let mut s = head[k];
+            for (u, &yj) in row[1..].iter().zip(tail.iter()) {
+                s -= u * yj;
+            }
+            head[k] = s * self.inv_diag[k];
+        }
+        for (&v, &old) in y.iter().zip(order) {
+            rhs[old] = v;
+        }
+    }
+
+    fn multiply(
+        &mut self,
+        _sys: &System,
+        omega: f64,
+        x: &[Complex64],
+        y: &mut [Complex64],
+        derivative_only: bool,
+    ) {
+        // In the band's order, streaming over the band of G and C.
+        let layout = &*self.layout;
+        let (n, kl, order) = (layout.n, layout.kl, &layout.order);
+        let wa = kl + layout.ku + 1;
+        let (g, c) = (&layout.g, &layout.c);
+        if x.len() != n || y.len() != n {
+            return;
+        }
+        let (xs, ys) = (&mut self.work, &mut self.work2);
+        for (v, &old) in xs.iter_mut().zip(order) {
+            *v = x[old];
+        }
+        for (i, ((out, g), c)) in ys
+            .iter_mut()
+            .zip(g.chunks_exact(wa))
+            .zip(c.chunks_exact(wa))
+            .enumerate()
+        {
+            // Row i holds columns i − kl ..= i + ku; those outside 0..n are not stored.
+            let first = kl.saturating_sub(i);
+            let last = wa.min(n + kl - i);
+            let mut s = Complex64::default();
+            for t in first..last {
+                let a = if derivative_only {
+                    Complex64::new(0.0, c[t])
+                } else {
+                    Complex64::new(g[t], omega * c[t])
+                };
+                s += a * xs[i + t - kl];
+            }
+            *out = s;
+        }
+        for (&v, &old) in ys.iter().zip(order) {
+            y[old] = v;
+        }
+    }
+}
