@@ -341,8 +341,9 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
             csv.push((h, stream));
         }
     }
-    let stdout = std::io::stdout();
-    let mut stdout = std::io::BufWriter::with_capacity(1 << 20, stdout.lock());
+    // Not locked for the whole run: the sink may run on any of rayon's threads, and the
+    // buffer takes the lock once per megabyte.
+    let mut stdout = std::io::BufWriter::with_capacity(1 << 20, std::io::stdout());
     let mut stdout_csv = if to_stdout {
         let meta: Vec<(&str, ResponseUnit, bool, bool)> = specs
             .iter()

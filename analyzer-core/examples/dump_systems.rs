@@ -14,7 +14,7 @@ fn main() -> std::io::Result<()> {
         "u3".to_string(),
         rlc_ladder(0, 1.0, 1.0, 1.0, 50.0, 50.0).map_err(std::io::Error::other)?,
     )];
-    for order in [1, 5, 13, 29] {
+    for order in [1, 3, 5, 7, 13, 29] {
         let (net, _) = butterworth_ladder(order, 50.0, 1e3).map_err(std::io::Error::other)?;
         let n = System::assemble(&net).n;
         nets.push((format!("u{n}"), net));

@@ -550,8 +550,10 @@ pub fn figures(
     let db = &trace.db;
     let n = grid.len().min(db.len());
     let freq = |k: usize| grid.at(k);
-    // Grid points at 0 Hz cannot sit on a log axis; refinements work in ln f.
-    let usable = || (0..n).filter(move |&k| freq(k) > 0.0 && db[k].is_finite());
+    // Grid points at 0 Hz cannot sit on a log axis; refinements work in ln f. Grids ascend,
+    // so only a first point can be 0 Hz (found once, not by evaluating every point).
+    let k0 = usize::from(n > 0 && freq(0) <= 0.0);
+    let usable = move || (k0..n).filter(move |&k| db[k].is_finite());
 
     let mut peaks = Vec::new();
     let mut notches = Vec::new();

@@ -403,27 +403,27 @@ fn solve_chunk<'a>(
 }
 
 /// Evaluates the grid chunk by chunk (each chunk in parallel) and hands every chunk, in
-/// order, to `sink`, which runs on the calling thread while the next chunk is solved:
-/// writing the output overlaps with solving, and memory stays bounded by three chunks
-/// whatever the grid's size. Stops at the first failure: the lowest failing frequency's
-/// error (after the chunks before it went to the sink), or the sink's own error.
-pub fn run_chunks<'a, E: From<AnalysisError>>(
+/// order, to `sink`. While the sink takes chunk k, chunk k + 1 is solved beside it
+/// (`rayon::join` on the current pool), so writing the output overlaps with solving and
+/// memory stays bounded by two chunks whatever the grid's size. With
+/// [`SweepOptions::sequential`] everything runs on the calling thread, one chunk after the
+/// other. Stops at the first failure: the sink's error for a chunk, or else the lowest
+/// failing frequency's error (after every chunk before it went to the sink).
+pub fn run_chunks<'a, E: From<AnalysisError> + Send>(
     ev: &Evaluator<'a>,
     grid: &Grid,
     opts: &SweepOptions,
     chunk_points: usize,
-    mut sink: impl FnMut(Chunk<'_>) -> Result<(), E>,
+    mut sink: impl FnMut(Chunk<'_>) -> Result<(), E> + Send,
 ) -> Result<(), E> {
     let n = grid.len();
     if grid.has_dc() {
         ev.analysis().check_dc()?;
     }
     let chunk_points = chunk_points.max(1);
-    let spans = move || {
-        (0..n)
-            .step_by(chunk_points)
-            .map(move |o| (o, chunk_points.min(n - o)))
-    };
+    let mut spans = (0..n)
+        .step_by(chunk_points)
+        .map(|o| (o, chunk_points.min(n - o)));
     let task = task_points(ev.analysis().system().n);
     // One workspace per worker for the whole run (a large system's workspace is costly to
     // make); workers take tasks from a shared counter, so the load balances itself.
@@ -434,32 +434,21 @@ pub fn run_chunks<'a, E: From<AnalysisError>>(
     };
     let mut pool: Vec<Workspace<'a>> = (0..workers).map(|_| ev.workspace()).collect();
     let derivatives = opts.derivatives;
-    if opts.sequential || n <= chunk_points {
-        for span in spans() {
-            let solved = solve_chunk(ev, grid, derivatives, &mut pool, span, task)?;
-            sink(solved.view())?;
-        }
+    let mut solve = |span| solve_chunk(ev, grid, derivatives, &mut pool, span, task);
+    let Some(first) = spans.next() else {
         return Ok(());
+    };
+    let mut pending = solve(first)?;
+    for span in spans {
+        let (sunk, next) = if opts.sequential {
+            (sink(pending.view()), solve(span))
+        } else {
+            rayon::join(|| sink(pending.view()), || solve(span))
+        };
+        sunk?;
+        pending = next?;
     }
-    // A solving thread feeds the sink through a channel of one: chunk k + 1 is solved on
-    // rayon's pool while the sink formats and writes chunk k (also on the pool).
-    std::thread::scope(|scope| {
-        let (tx, rx) = std::sync::mpsc::sync_channel(1);
-        scope.spawn(move || {
-            for span in spans() {
-                let solved = solve_chunk(ev, grid, derivatives, &mut pool, span, task);
-                let failed = solved.is_err();
-                // A closed channel means the sink failed: stop solving.
-                if tx.send(solved).is_err() || failed {
-                    return;
-                }
-            }
-        });
-        for solved in rx {
-            sink(solved?.view())?;
-        }
-        Ok(())
-    })
+    sink(pending.view())
 }
 
 /// Evaluates every response at every grid point in parallel (or on this thread) and keeps
