@@ -11,6 +11,10 @@ use analyzer_core::response::{Analysis, ResponseSpec};
 use analyzer_core::sweep::{self, Grid, SweepOptions};
 use std::time::Instant;
 
+// The binaries' allocator (see analyzer-cli): benches measure what users run.
+#[global_allocator]
+static GLOBAL: mimalloc::MiMalloc = mimalloc::MiMalloc;
+
 /// The systems, named as `dump_systems` names them: `u{n}` and `ladder{sections}`.
 fn systems() -> Vec<(String, Network, ResponseSpec)> {
     let mut v = Vec::new();
@@ -30,25 +34,41 @@ fn systems() -> Vec<(String, Network, ResponseSpec)> {
     v
 }
 
-/// Median ns per point of `runs` sweeps of `grid` on a pool of `threads` threads.
-fn ns_per_point(a: &Analysis, grid: &Grid, threads: usize, runs: usize) -> f64 {
-    let pool = rayon::ThreadPoolBuilder::new()
-        .num_threads(threads)
-        .build()
-        .expect("pool");
+/// Wall time in seconds of one sweep of `grid` on `pool`.
+fn sweep_secs(a: &Analysis, grid: &Grid, pool: &rayon::ThreadPool) -> f64 {
     let ev = a.evaluator().expect("evaluator");
-    let mut t: Vec<f64> = (0..runs)
-        .map(|_| {
-            let start = Instant::now();
-            pool.install(|| {
-                let s = sweep::run(&ev, grid, &SweepOptions::default()).expect("sweep");
-                std::hint::black_box(&s);
-            });
-            start.elapsed().as_secs_f64()
-        })
+    let start = Instant::now();
+    pool.install(|| {
+        let s = sweep::run(&ev, grid, &SweepOptions::default()).expect("sweep");
+        std::hint::black_box(&s);
+    });
+    start.elapsed().as_secs_f64()
+}
+
+fn median(mut v: Vec<f64>) -> f64 {
+    v.sort_by(f64::total_cmp);
+    v[v.len() / 2]
+}
+
+/// Median ns per point on 1 and on 2 threads, and the median of the ratio of runs made one
+/// right after the other (so a slow spell of the machine hits both sides of a ratio).
+fn ns_per_point(a: &Analysis, grid: &Grid, runs: usize) -> (f64, f64, f64) {
+    let pool = |threads| {
+        rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .expect("pool")
+    };
+    let (one, two) = (pool(1), pool(2));
+    let pairs: Vec<(f64, f64)> = (0..runs)
+        .map(|_| (sweep_secs(a, grid, &one), sweep_secs(a, grid, &two)))
         .collect();
-    t.sort_by(f64::total_cmp);
-    t[t.len() / 2] / grid.len() as f64 * 1e9
+    let per_point = |t: f64| t / grid.len() as f64 * 1e9;
+    (
+        per_point(median(pairs.iter().map(|p| p.0).collect())),
+        per_point(median(pairs.iter().map(|p| p.1).collect())),
+        median(pairs.iter().map(|p| p.0 / p.1).collect()),
+    )
 }
 
 fn main() {
@@ -57,15 +77,14 @@ fn main() {
         let n = a.system().n;
         // Enough points for about a second of work per run at the system's size.
         let (points, runs) = match n {
-            0..=50 => (200_000, 7),
-            51..=5_000 => (400, 5),
-            5_001..=50_000 => (64, 5),
-            _ => (16, 3),
+            0..=50 => (200_000, 9),
+            51..=5_000 => (400, 7),
+            5_001..=50_000 => (64, 7),
+            _ => (16, 5),
         };
         let grid = Grid::log(10.0, 1e5, (points - 1) as f64 / 4.0).expect("grid");
         let kind = a.evaluator().expect("evaluator").solver_kind();
-        let one = ns_per_point(&a, &grid, 1, runs);
-        let two = ns_per_point(&a, &grid, 2, runs);
-        println!("{name} {n} {kind:?} {one:.1} {two:.1}");
+        let (one, two, ratio) = ns_per_point(&a, &grid, runs);
+        println!("{name} {n} {kind:?} {one:.1} {two:.1} {ratio:.2}");
     }
 }

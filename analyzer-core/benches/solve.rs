@@ -13,6 +13,10 @@ use analyzer_core::sweep::{self, Grid, SweepOptions};
 use criterion::{criterion_group, criterion_main, BatchSize, BenchmarkId, Criterion};
 use std::time::Duration;
 
+// The binaries' allocator (see analyzer-cli): benches measure what users run.
+#[global_allocator]
+static GLOBAL: mimalloc::MiMalloc = mimalloc::MiMalloc;
+
 /// The small networks: unknown counts 3, 5, 9, 13, 15, 19, 43.
 pub fn small_networks() -> Vec<(usize, Network, ResponseSpec)> {
     let mut v = Vec::new();

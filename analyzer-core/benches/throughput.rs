@@ -10,6 +10,10 @@ use analyzer_core::solve::SolverKind;
 use analyzer_core::sweep::{self, Grid, SweepOptions};
 use std::time::Instant;
 
+// The binaries' allocator (see analyzer-cli): benches measure what users run.
+#[global_allocator]
+static GLOBAL: mimalloc::MiMalloc = mimalloc::MiMalloc;
+
 /// Median wall time in seconds of `runs` runs of `f` on a pool of `threads` threads.
 fn median_secs(runs: usize, threads: usize, mut f: impl FnMut() + Send) -> f64 {
     let pool = rayon::ThreadPoolBuilder::new()

@@ -8,6 +8,10 @@ use analyzer_core::sweep::{self, Grid, SweepOptions};
 use analyzer_core::units::format_eng;
 use std::time::Instant;
 
+// The binaries' allocator (see analyzer-cli): benches measure what users run.
+#[global_allocator]
+static GLOBAL: mimalloc::MiMalloc = mimalloc::MiMalloc;
+
 fn main() -> Result<(), Box<dyn std::error::Error>> {
     let sections: usize = std::env::args()
         .nth(1)

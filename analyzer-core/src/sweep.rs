@@ -12,6 +12,7 @@ use crate::response::{AnalysisError, Evaluator, Workspace};
 use crate::units::{format_eng, Hertz};
 use rayon::prelude::*;
 use std::sync::atomic::{AtomicUsize, Ordering};
+use std::sync::Mutex;
 
 /// Largest number of points a grid may have.
 pub const MAX_POINTS: usize = 100_000_000;
@@ -305,7 +306,8 @@ pub struct Chunk<'s> {
     pub delays: Option<&'s [Vec<f64>]>,
 }
 
-/// A solved chunk, owned, on its way from the solving thread to the sink.
+/// A solved chunk, by column; its buffers are reused from chunk to chunk.
+#[derive(Default)]
 struct Solved {
     offset: usize,
     freqs: Vec<Hertz>,
@@ -324,81 +326,107 @@ impl Solved {
     }
 }
 
-/// Solves points `offset .. offset + len` of the grid on the workspaces in `pool` (in
-/// parallel when there are several): tasks of `task` points are taken from a shared counter
-/// and stored by index, so the result never depends on timing. Fails with the error of the
-/// lowest failing frequency.
+/// One task's share of a chunk's columns, written by whichever worker takes the task.
+struct TaskOut<'o> {
+    freqs: &'o mut [Hertz],
+    values: Vec<&'o mut [num_complex::Complex64]>,
+    delays: Vec<&'o mut [f64]>,
+}
+
+/// Solves points `offset .. offset + len` of the grid into `out` on the workspaces in `pool`
+/// (in parallel when there are several). Tasks of `task` points are taken from a shared
+/// counter and each writes its own slice of the columns, so the result never depends on
+/// timing. Fails with the error of the lowest failing frequency.
 fn solve_chunk<'a>(
     ev: &Evaluator<'a>,
     grid: &Grid,
     derivatives: bool,
-    pool: &mut [Workspace<'a>],
+    pool: &mut [Option<Workspace<'a>>],
     (offset, len): (usize, usize),
     task: usize,
-) -> Result<Solved, AnalysisError> {
+    out: &mut Solved,
+) -> Result<(), AnalysisError> {
     let nr = ev.analysis().responses().len();
-    let tasks = len.div_ceil(task);
+    out.offset = offset;
+    out.freqs.resize(len, 0.0);
+    out.values.resize_with(nr, Vec::new);
+    for col in &mut out.values {
+        col.resize(len, num_complex::Complex64::default());
+    }
+    match (&mut out.delays, derivatives) {
+        (Some(d), true) => {
+            d.resize_with(nr, Vec::new);
+            d.iter_mut().for_each(|col| col.resize(len, 0.0));
+        }
+        (d, true) => *d = Some(vec![vec![0.0; len]; nr]),
+        (d, false) => *d = None,
+    }
+    // Cut every column at the task boundaries; task t takes slot t.
+    let freqs = out.freqs.chunks_mut(task);
+    let mut values: Vec<_> = out.values.iter_mut().map(|c| c.chunks_mut(task)).collect();
+    let mut delays: Vec<_> = out
+        .delays
+        .iter_mut()
+        .flatten()
+        .map(|c| c.chunks_mut(task))
+        .collect();
+    let mut slots = Vec::new();
+    for f in freqs {
+        let task_out = TaskOut {
+            freqs: f,
+            values: values.iter_mut().filter_map(Iterator::next).collect(),
+            delays: delays.iter_mut().filter_map(Iterator::next).collect(),
+        };
+        slots.push(Mutex::new(Some(task_out)));
+    }
     let next = AtomicUsize::new(0);
-    let worker = |ws: &mut Workspace<'a>| {
-        let mut done = Vec::new();
+    // A worker's first failure, or None once the counter has passed the last slot.
+    let worker = |ws: &mut Option<Workspace<'a>>| -> Option<(usize, AnalysisError)> {
+        // Made on the worker's own thread, so its buffers come from that thread's heap and
+        // share no cache line with another worker's (two workspaces made one after the
+        // other on one thread sat side by side, and 2 threads ran barely faster than 1).
+        let ws = ws.get_or_insert_with(|| ev.workspace());
         loop {
             let t = next.fetch_add(1, Ordering::Relaxed);
-            if t >= tasks {
-                return (done, None);
-            }
+            let slot = slots.get(t)?;
+            // Each slot is taken once, by one worker: the lock is never contended.
+            let taken = match slot.lock() {
+                Ok(mut g) => g.take(),
+                Err(poisoned) => poisoned.into_inner().take(),
+            };
+            let Some(o) = taken else { continue };
             let first = offset + t * task;
-            let count = task.min(offset + len - first);
-            let fs: Vec<Hertz> = (first..first + count).map(|k| grid.at(k)).collect();
-            match ev.at_many(ws, &fs, derivatives) {
-                Ok(p) => done.push((t, p.to_vec(), fs)),
-                Err(e) => return (done, Some((t, e))),
+            for (k, f) in o.freqs.iter_mut().enumerate() {
+                *f = grid.at(first + k);
+            }
+            let points = match ev.at_many(ws, o.freqs, derivatives) {
+                Ok(p) => p,
+                Err(e) => return Some((t, e)),
+            };
+            for (r, col) in o.values.into_iter().enumerate() {
+                let rows = points.iter().skip(r).step_by(nr.max(1));
+                for (dst, p) in col.iter_mut().zip(rows) {
+                    *dst = p.value;
+                }
+            }
+            for (r, col) in o.delays.into_iter().enumerate() {
+                let rows = points.iter().skip(r).step_by(nr.max(1));
+                for (dst, p) in col.iter_mut().zip(rows) {
+                    *dst = p.group_delay();
+                }
             }
         }
     };
-    let results: Vec<_> = if pool.len() == 1 {
+    let errors: Vec<_> = if pool.len() == 1 {
         pool.iter_mut().map(worker).collect()
     } else {
         pool.par_iter_mut().map(worker).collect()
     };
-    let mut out = Solved {
-        offset,
-        freqs: vec![0.0; len],
-        values: vec![vec![num_complex::Complex64::default(); len]; nr],
-        delays: derivatives.then(|| vec![vec![0.0; len]; nr]),
-    };
     // Every task below the lowest failing one was handed out before it, so the lowest
     // failing task is the lowest failing frequency whatever the timing.
-    let mut first_error: Option<(usize, AnalysisError)> = None;
-    for (done, err) in results {
-        if let Some((t, e)) = err {
-            if first_error.as_ref().is_none_or(|(u, _)| t < *u) {
-                first_error = Some((t, e));
-            }
-        }
-        for (t, pts, fs) in done {
-            let at = t * task;
-            if let Some(dst) = out.freqs.get_mut(at..at + fs.len()) {
-                dst.copy_from_slice(&fs);
-            }
-            for (r, col) in out.values.iter_mut().enumerate() {
-                let rows = pts.iter().skip(r).step_by(nr.max(1));
-                for (dst, p) in col.iter_mut().skip(at).zip(rows) {
-                    *dst = p.value;
-                }
-            }
-            if let Some(d) = out.delays.as_mut() {
-                for (r, col) in d.iter_mut().enumerate() {
-                    let rows = pts.iter().skip(r).step_by(nr.max(1));
-                    for (dst, p) in col.iter_mut().skip(at).zip(rows) {
-                        *dst = p.group_delay();
-                    }
-                }
-            }
-        }
-    }
-    match first_error {
+    match errors.into_iter().flatten().min_by_key(|(t, _)| *t) {
         Some((_, e)) => Err(e),
-        None => Ok(out),
+        None => Ok(()),
     }
 }
 
@@ -432,23 +460,28 @@ pub fn run_chunks<'a, E: From<AnalysisError> + Send>(
     } else {
         rayon::current_num_threads().max(1)
     };
-    let mut pool: Vec<Workspace<'a>> = (0..workers).map(|_| ev.workspace()).collect();
+    let mut pool: Vec<Option<Workspace<'a>>> = (0..workers).map(|_| None).collect();
     let derivatives = opts.derivatives;
-    let mut solve = |span| solve_chunk(ev, grid, derivatives, &mut pool, span, task);
+    let mut solve =
+        |span, out: &mut Solved| solve_chunk(ev, grid, derivatives, &mut pool, span, task, out);
     let Some(first) = spans.next() else {
         return Ok(());
     };
-    let mut pending = solve(first)?;
+    // Two chunks' buffers in turn: the sink reads one while the next is solved into the
+    // other.
+    let (mut ready, mut spare) = (Solved::default(), Solved::default());
+    solve(first, &mut ready)?;
     for span in spans {
         let (sunk, next) = if opts.sequential {
-            (sink(pending.view()), solve(span))
+            (sink(ready.view()), solve(span, &mut spare))
         } else {
-            rayon::join(|| sink(pending.view()), || solve(span))
+            rayon::join(|| sink(ready.view()), || solve(span, &mut spare))
         };
         sunk?;
-        pending = next?;
+        next?;
+        std::mem::swap(&mut ready, &mut spare);
     }
-    sink(pending.view())
+    sink(ready.view())
 }
 
 /// Evaluates every response at every grid point in parallel (or on this thread) and keeps
