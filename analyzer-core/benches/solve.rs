@@ -17,7 +17,7 @@ use std::time::Duration;
 #[global_allocator]
 static GLOBAL: mimalloc::MiMalloc = mimalloc::MiMalloc;
 
-/// The small networks: unknown counts 3, 5, 9, 13, 15, 19, 43.
+/// The small networks: unknown counts 3, 5, 9, 13, 15, 17, 33.
 pub fn small_networks() -> Vec<(usize, Network, ResponseSpec)> {
     let mut v = Vec::new();
     let net = rlc_ladder(0, 1.0, 1.0, 1.0, 50.0, 50.0).unwrap();
