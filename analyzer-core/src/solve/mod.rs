@@ -39,12 +39,12 @@ use sparse::SparseShared;
 use std::sync::Arc;
 
 /// Largest system the stack kernel serves. Measured with
-/// `cargo bench -p analyzer-core --bench solve` on the 2-core CI machine, factor + solve per
-/// point, one frequency per pass: 9 unknowns 0.50 µs (sparse 1.04, dense 1.37), 13 unknowns
-/// 1.28 µs (sparse 1.64), 15 unknowns 1.44 µs (sparse 2.12); at 17 the sparse path took
-/// 1.68 µs and dense 3.15. Eight frequencies per pass make the kernel cheaper still per
-/// point (see the README's Performance section); above 16 unknowns the band path takes
-/// over for the ladders that dominate there.
+/// `cargo bench -p analyzer-core --bench solve -- small/` on the 2-core CI machine
+/// (2026-12-02). In sweeps, eight frequencies per pass on 2 threads: 9 unknowns 137 ns per
+/// point, 15 unknowns 271 ns (`sweep-10k`), where the band path takes 519 ns at 17. One
+/// frequency at a time (factor + solve), the band path is already the faster from 9
+/// unknowns up (362 ns against 492; sparse 732, dense 1,031), but single points are only
+/// the figures' refinements; the sweep decides.
 pub const SMALL_MAX: usize = 16;
 
 /// Which solver path to use.
