@@ -4,7 +4,8 @@
 //! `SYSTEM UNKNOWNS PATH NS_PER_POINT_1_THREAD NS_PER_POINT_2_THREADS SPEEDUP`: the fastest
 //! of several runs of a solve-only sweep (no derivatives, no output) on 1 and on 2 threads,
 //! the runs made in pairs, and the ratio of the two.
-//! Run: `cargo bench -p analyzer-core --bench per_point`.
+//! Run: `cargo bench -p analyzer-core --bench per_point` (`SMALL_POINTS=10000` to sweep the
+//! small systems over 10,000 points instead of 200,000).
 
 use analyzer_core::ladders::{butterworth_ladder, ladder_gain, rlc_ladder};
 use analyzer_core::network::Network;
@@ -81,6 +82,14 @@ fn main() {
             51..=5_000 => (400, 7),
             5_001..=50_000 => (64, 7),
             _ => (16, 5),
+        };
+        // SMALL_POINTS=10000 (say) sweeps the small systems over fewer points.
+        let points = match std::env::var("SMALL_POINTS")
+            .ok()
+            .and_then(|s| s.parse().ok())
+        {
+            Some(p) if n <= 50 => p,
+            _ => points,
         };
         let grid = Grid::log(10.0, 1e5, (points - 1) as f64 / 4.0).expect("grid");
         let kind = a.evaluator().expect("evaluator").solver_kind();
