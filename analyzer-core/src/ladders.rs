@@ -132,3 +132,25 @@ pub fn full_mesh(nodes: usize, r: f64, c: f64) -> Result<Network, NetworkError> 
     }
     b.build()
 }
+
+/// An RC chain with exactly `nodes` unknowns (all node voltages `n1` … `n{nodes}`): a current
+/// source of 1 mA ∠11° into `n1`, a resistor and a capacitor to ground at every node and a
+/// resistor and a capacitor between neighbours, with values that vary along the chain so
+/// pivoting has work to do. It stands in for an RC line; tests use it to reach every size the
+/// stack kernel serves.
+pub fn rc_chain(nodes: usize) -> Result<Network, NetworkError> {
+    let mut b = NetworkBuilder::new(format!("{nodes}-node RC chain"));
+    b.current_source("I1", "gnd", "n1", num_complex::Complex64::new(1e-3, 2e-4))?;
+    for k in 1..=nodes {
+        let node = format!("n{k}");
+        b.resistor(&format!("Rg{k}"), &node, "gnd", 100.0 * (1.0 + k as f64))?;
+        let cg = 1e-9 * (1.0 + (k % 3) as f64);
+        b.capacitor(&format!("Cg{k}"), &node, "gnd", cg)?;
+        if k > 1 {
+            let prev = format!("n{}", k - 1);
+            b.resistor(&format!("R{k}"), &prev, &node, 50.0 * k as f64)?;
+            b.capacitor(&format!("C{k}"), &prev, &node, 2e-9 / k as f64)?;
+        }
+    }
+    b.build()
+}

@@ -606,29 +606,7 @@ mod tests {
     /// input impedance (a test injection) and as a transfer ratio (the design's own source),
     /// so two right-hand sides share each factorisation.
     fn chain(n: usize) -> Analysis {
-        let mut b = NetworkBuilder::new("chain");
-        b.current_source("I1", "gnd", "n1", Complex64::new(1e-3, 2e-4))
-            .unwrap();
-        for k in 1..=n {
-            let node = format!("n{k}");
-            b.resistor(&format!("Rg{k}"), &node, "gnd", 100.0 * (1.0 + k as f64))
-                .unwrap();
-            b.capacitor(
-                &format!("Cg{k}"),
-                &node,
-                "gnd",
-                1e-9 * (1.0 + (k % 3) as f64),
-            )
-            .unwrap();
-            if k > 1 {
-                let prev = format!("n{}", k - 1);
-                b.resistor(&format!("R{k}"), &prev, &node, 50.0 * k as f64)
-                    .unwrap();
-                b.capacitor(&format!("C{k}"), &prev, &node, 2e-9 / k as f64)
-                    .unwrap();
-            }
-        }
-        let net = b.build().unwrap();
+        let net = crate::ladders::rc_chain(n).unwrap();
         let first = net.node("n1").unwrap();
         let last = net.node(&format!("n{n}")).unwrap();
         let specs = vec![

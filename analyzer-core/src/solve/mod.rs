@@ -400,6 +400,13 @@ mod tests {
     use super::*;
     use crate::network::NetworkBuilder;
 
+    const ALL_PATHS: [SolverKind; 4] = [
+        SolverKind::Small,
+        SolverKind::Band,
+        SolverKind::Dense,
+        SolverKind::Sparse,
+    ];
+
     /// The design's solution of `sys` at `omega` on `plan`'s path, residual checked.
     fn solution(plan: &SolverPlan<'_>, sys: &System, omega: f64) -> Vec<Complex64> {
         let mut s = plan.make();
@@ -431,12 +438,7 @@ mod tests {
         for sections in [1, 2, 3, 4, 5, 8, 12, 20] {
             let sys = ladder(sections);
             let mut reference: Option<Vec<Complex64>> = None;
-            for kind in [
-                SolverKind::Small,
-                SolverKind::Band,
-                SolverKind::Dense,
-                SolverKind::Sparse,
-            ] {
+            for kind in ALL_PATHS {
                 let plan = SolverPlan::new(&sys, kind).unwrap();
                 let x = solution(&plan, &sys, 2.0 * std::f64::consts::PI * 3e3);
                 match &reference {
@@ -455,33 +457,10 @@ mod tests {
         }
     }
 
-    /// A network with exactly `n` unknowns (all node voltages): a current source into node
-    /// 1, a chain of resistors and capacitors, and a capacitor and resistor to ground at
-    /// every node, with values that vary so pivoting has work to do.
+    /// A network with exactly `n` unknowns (all node voltages), see
+    /// [`crate::ladders::rc_chain`].
     fn chain(n: usize) -> System {
-        let mut b = NetworkBuilder::new("chain");
-        b.current_source("I1", "gnd", "n1", Complex64::new(1e-3, 2e-4))
-            .unwrap();
-        for k in 1..=n {
-            let node = format!("n{k}");
-            b.resistor(&format!("Rg{k}"), &node, "gnd", 100.0 * (1.0 + k as f64))
-                .unwrap();
-            b.capacitor(
-                &format!("Cg{k}"),
-                &node,
-                "gnd",
-                1e-9 * (1.0 + (k % 3) as f64),
-            )
-            .unwrap();
-            if k > 1 {
-                let prev = format!("n{}", k - 1);
-                b.resistor(&format!("R{k}"), &prev, &node, 50.0 * k as f64)
-                    .unwrap();
-                b.capacitor(&format!("C{k}"), &prev, &node, 2e-9 / k as f64)
-                    .unwrap();
-            }
-        }
-        System::assemble(&b.build().unwrap())
+        System::assemble(&crate::ladders::rc_chain(n).unwrap())
     }
 
     /// The stack kernel against faer's dense and sparse LU on every size it serves.
@@ -495,12 +474,7 @@ mod tests {
                 SolverKind::Small
             );
             let mut results = Vec::new();
-            for kind in [
-                SolverKind::Small,
-                SolverKind::Band,
-                SolverKind::Dense,
-                SolverKind::Sparse,
-            ] {
+            for kind in ALL_PATHS {
                 let plan = SolverPlan::new(&sys, kind).unwrap();
                 assert_eq!(plan.kind(), kind);
                 results.push(solution(&plan, &sys, 2.0 * std::f64::consts::PI * 7.3e4));
