@@ -105,12 +105,6 @@ impl BandLayout {
     pub fn width(&self) -> usize {
         2 * self.kl + self.ku + 1
     }
-
-    /// Complex multiply-adds of one factorisation, about: the cost the automatic choice
-    /// weighs against the sparse path.
-    pub fn factor_work(&self) -> f64 {
-        self.n as f64 * (self.kl as f64) * ((self.kl + self.ku) as f64 + 1.0)
-    }
 }
 
 /// Banded LU with partial pivoting at one frequency, with its own band storage.
