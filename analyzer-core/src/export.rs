@@ -19,11 +19,6 @@ use plotters::prelude::*;
 use rayon::prelude::*;
 use std::io::{self, Write};
 
-/// Magnitude in dB of each value.
-pub fn magnitudes_db(values: &[Complex64]) -> Vec<f64> {
-    values.iter().map(|v| 20.0 * v.norm().log10()).collect()
-}
-
 /// Unwraps a phase sequence point by point, so a sweep can be unwrapped chunk by chunk: the
 /// first value is kept as it is (in (−180°, 180°]), each later one is moved by whole turns to
 /// within 180° of the one before.
