@@ -129,6 +129,26 @@ fn ladders(c: &mut Criterion) {
     g.finish();
 }
 
+/// One factorisation and solve of `sys` at `omega` on `kind`'s path, as `KIND/id`.
+fn factor_and_solve(
+    g: &mut criterion::BenchmarkGroup<'_, criterion::measurement::WallTime>,
+    sys: &System,
+    kind: SolverKind,
+    omega: f64,
+    id: usize,
+) {
+    let plan = SolverPlan::new(sys, kind).unwrap();
+    let mut s = plan.make();
+    let mut x = sys.b.clone();
+    g.bench_function(BenchmarkId::new(format!("{kind:?}"), id), |b| {
+        b.iter(|| {
+            s.factor(omega).unwrap();
+            x.copy_from_slice(&sys.b);
+            s.solve(&mut x);
+        })
+    });
+}
+
 /// Band against sparse on RC meshes of growing width (about 20,000 unknowns each): where
 /// the automatic choice should switch from the band path to the sparse one.
 fn meshes(c: &mut Criterion) {
@@ -141,16 +161,7 @@ fn meshes(c: &mut Criterion) {
         let net = rc_mesh(width, 20_000 / width, 100.0, 1e-9).unwrap();
         let sys = System::assemble(&net);
         for kind in [SolverKind::Band, SolverKind::Sparse] {
-            let plan = SolverPlan::new(&sys, kind).unwrap();
-            let mut s = plan.make();
-            let mut x = sys.b.clone();
-            g.bench_function(BenchmarkId::new(format!("{kind:?}"), width), |b| {
-                b.iter(|| {
-                    s.factor(omega).unwrap();
-                    x.copy_from_slice(&sys.b);
-                    s.solve(&mut x);
-                })
-            });
+            factor_and_solve(&mut g, &sys, kind, omega, width);
         }
     }
     g.finish();
@@ -167,16 +178,7 @@ fn full(c: &mut Criterion) {
     for nodes in [20, 40, 80, 160, 320] {
         let sys = System::assemble(&full_mesh(nodes, 100.0, 1e-9).unwrap());
         for kind in [SolverKind::Dense, SolverKind::Band, SolverKind::Sparse] {
-            let plan = SolverPlan::new(&sys, kind).unwrap();
-            let mut s = plan.make();
-            let mut x = sys.b.clone();
-            g.bench_function(BenchmarkId::new(format!("{kind:?}"), sys.n), |b| {
-                b.iter(|| {
-                    s.factor(omega).unwrap();
-                    x.copy_from_slice(&sys.b);
-                    s.solve(&mut x);
-                })
-            });
+            factor_and_solve(&mut g, &sys, kind, omega, sys.n);
         }
     }
     g.finish();

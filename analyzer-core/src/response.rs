@@ -371,6 +371,8 @@ pub struct Workspace<'a> {
     /// Per excitation, their ω-derivatives.
     dxs: Vec<Vec<Complex64>>,
     points: Vec<Point>,
+    /// Groups the wide solver failed on, so they were evaluated one frequency at a time.
+    regrouped: usize,
 }
 
 /// The solver and buffers one group of frequencies is evaluated with.
@@ -407,6 +409,7 @@ impl<'a> Evaluator<'a> {
             xs: vec![vec![Complex64::default(); a.sys.n * lanes]; a.rhs.len()],
             dxs: vec![vec![Complex64::default(); a.sys.n * lanes]; a.rhs.len()],
             points: vec![Point::default(); a.specs.len()],
+            regrouped: 0,
         }
     }
 
@@ -468,6 +471,7 @@ impl<'a> Evaluator<'a> {
                     if self.eval_group(&mut group, fs, derivatives, out).is_ok() {
                         continue;
                     }
+                    ws.regrouped += 1;
                 }
             }
             // One at a time: the fallback that finds which frequency failed, and why.
@@ -642,6 +646,8 @@ mod tests {
             let mut one = ev.workspace();
             let many = ev.at_many(&mut wide, &freqs, true).unwrap().to_vec();
             assert_eq!(many.len(), freqs.len() * 2);
+            // The wide kernel served every group: the fallback would hide a wrong lane.
+            assert_eq!(wide.regrouped, 0, "n = {n}");
             for (k, &f) in freqs.iter().enumerate() {
                 let single = ev.at(&mut one, f, true).unwrap();
                 assert_eq!(&many[2 * k..2 * k + 2], single, "n = {n}, f = {f}");
@@ -681,6 +687,7 @@ mod tests {
                 }) => {
                     assert_eq!(frequency, 0.0);
                     assert_eq!(blame, "node b");
+                    assert!(ws.regrouped > 0);
                 }
                 other => panic!("lane {lane}: {other:?}"),
             }
