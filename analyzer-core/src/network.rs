@@ -970,26 +970,26 @@ mod tests {
             Err(NetworkError::DuplicateName { .. })
         ));
         assert!(matches!(
-            b.coupling("K1", "L1", "L2", 1.5),
+            b.coupling("coil_coupling", "L1", "L2", 1.5),
             Err(NetworkError::CouplingOutOfRange { .. })
         ));
-        b.coupling("K1", "L1", "R1", 0.5).unwrap();
+        b.coupling("coil_coupling", "L1", "R1", 0.5).unwrap();
         let err = b.clone().build().unwrap_err();
         assert_eq!(
             err.to_string(),
-            "K1: coupled inductor \"L1\" is not a part of this design"
+            "coil_coupling: coupled inductor \"L1\" is not a part of this design"
         );
         let mut b = NetworkBuilder::new("t");
         b.resistor("R1", "a", "gnd", 1.0).unwrap();
         b.inductor("L1", "a", "gnd", 1.0).unwrap();
-        b.coupling("K1", "L1", "R1", 0.5).unwrap();
+        b.coupling("coil_coupling", "L1", "R1", 0.5).unwrap();
         assert_eq!(
             b.build().unwrap_err().to_string(),
-            "K1: coupled inductor \"R1\" is a resistor, expected an inductor"
+            "coil_coupling: coupled inductor \"R1\" is a resistor, expected an inductor"
         );
         let mut b = NetworkBuilder::new("t");
-        b.cccs("F1", ("a", "gnd"), "F2", 2.0).unwrap();
-        b.cccs("F2", ("a", "gnd"), "F1", 2.0).unwrap();
+        b.cccs("mirror_a", ("a", "gnd"), "mirror_b", 2.0).unwrap();
+        b.cccs("mirror_b", ("a", "gnd"), "mirror_a", 2.0).unwrap();
         assert!(matches!(b.build(), Err(NetworkError::WrongKind { .. })));
     }
 }

@@ -534,16 +534,17 @@ mod tests {
             .unwrap();
         b.current_source("I1", "gnd", "b", Complex64::new(3.0, 0.0))
             .unwrap();
-        b.vccs("G1", ("b", "gnd"), ("a", "gnd"), 0.25).unwrap();
-        b.vcvs("E1", ("c", "gnd"), ("a", "b"), 4.0).unwrap();
+        b.vccs("gm_stage", ("b", "gnd"), ("a", "gnd"), 0.25)
+            .unwrap();
+        b.vcvs("diff_amp", ("c", "gnd"), ("a", "b"), 4.0).unwrap();
         let net = b.build().unwrap();
         let sys = System::assemble(&net);
-        // Unknowns: a b c, V1, E1.
+        // Unknowns: a b c, V1, diff_amp.
         assert_eq!(sys.n, 5);
         let a = dense(&sys, 1.0);
         assert_eq!(sys.b[3], Complex64::new(2.0, 1.0));
         assert_eq!(sys.b[1], Complex64::new(3.0, 0.0));
-        // G1 takes 0.25·V(a) out of node b (current flows through it from b to gnd).
+        // gm_stage takes 0.25·V(a) out of node b (current flows through it from b to gnd).
         assert_eq!(at(&a, 5, 1, 0), Complex64::new(0.25, 0.0));
         assert_eq!(at(&a, 5, 4, 2), Complex64::new(1.0, 0.0));
         assert_eq!(at(&a, 5, 4, 0), Complex64::new(-4.0, 0.0));
@@ -555,20 +556,20 @@ mod tests {
         let mut b = NetworkBuilder::new("t");
         b.inductor("L1", "a", "gnd", 4.0).unwrap();
         b.inductor("L2", "b", "gnd", 9.0).unwrap();
-        b.coupling("K1", "L1", "L2", 0.5).unwrap();
-        b.ccvs("H1", ("c", "gnd"), "L1", 10.0).unwrap();
-        b.cccs("F1", ("gnd", "b"), "L2", 3.0).unwrap();
+        b.coupling("coil_coupling", "L1", "L2", 0.5).unwrap();
+        b.ccvs("sense_amp", ("c", "gnd"), "L1", 10.0).unwrap();
+        b.cccs("mirror", ("gnd", "b"), "L2", 3.0).unwrap();
         b.single_pole_opamp("U1", "a", "b", "d", 1e5, 1e6).unwrap();
         let net = b.build().unwrap();
         let sys = System::assemble(&net);
-        // Unknowns: a b c d, L1, L2, H1, U1 state, U1 output.
+        // Unknowns: a b c d, L1, L2, sense_amp, U1 state, U1 output.
         assert_eq!(sys.n, 9);
         let a = dense(&sys, 1.0);
         // M = 0.5·√(4·9) = 3.
         assert_eq!(at(&a, 9, 4, 5), Complex64::new(0.0, -3.0));
         assert_eq!(at(&a, 9, 5, 4), Complex64::new(0.0, -3.0));
         assert_eq!(at(&a, 9, 6, 4), Complex64::new(-10.0, 0.0));
-        // F1 drives 3·I(L2) into node b: KCL row b gets −3 on I(L2), plus L2's own +1.
+        // mirror drives 3·I(L2) into node b: KCL row b gets −3 on I(L2), plus L2's own +1.
         assert_eq!(at(&a, 9, 1, 5), Complex64::new(1.0 - 3.0, 0.0));
         assert_eq!(at(&a, 9, 7, 0), Complex64::new(-1e5, 0.0));
         let tau = 1e5 / (2.0 * PI * 1e6);

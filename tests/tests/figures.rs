@@ -245,10 +245,10 @@ fn two_pole_loop_has_its_closed_form_phase_margin() {
     let a = analysis(&format!(
         r#"[parts]
 Vt = {{ voltage = "1", between = ["t", "gnd"] }}
-E1 = {{ vcvs = {k:e}, between = ["a", "gnd"], control = ["t", "gnd"] }}
+gain_stage = {{ vcvs = {k:e}, between = ["a", "gnd"], control = ["t", "gnd"] }}
 R1 = {{ resistor = {r1:e}, between = ["a", "b"] }}
 C1 = {{ capacitor = {c1:e}, between = ["b", "gnd"] }}
-E2 = {{ vcvs = 1, between = ["c", "gnd"], control = ["b", "gnd"] }}
+buffer = {{ vcvs = 1, between = ["c", "gnd"], control = ["b", "gnd"] }}
 R2 = {{ resistor = {r2:e}, between = ["c", "d"] }}
 C2 = {{ capacitor = {c2:e}, between = ["d", "gnd"] }}
 [responses]

@@ -58,16 +58,16 @@ L1 = { inductor = "1m", between = ["b", "c"] }
 C1 = { capacitor = "1u", between = ["c", "gnd"] }
 R2 = { resistor = "220", between = ["b", "d"] }
 L2 = { inductor = "2m", between = ["d", "gnd"] }
-K1 = { coupling = ["L1", "L2"], k = 0.6 }
+coil_coupling = { coupling = ["L1", "L2"], k = 0.6 }
 C2 = { capacitor = "470n", between = ["d", "e"] }
 I1 = { current = "2 mA", between = ["gnd", "e"] }
 R3 = { resistor = "1k", between = ["e", "gnd"] }
-E1 = { vcvs = "2", between = ["f", "gnd"], control = ["c", "gnd"] }
+doubler = { vcvs = "2", between = ["f", "gnd"], control = ["c", "gnd"] }
 R4 = { resistor = "330", between = ["f", "e"] }
-G1 = { vccs = "1m", between = ["e", "gnd"], control = ["b", "gnd"] }
-H1 = { ccvs = "50", between = ["g", "gnd"], control = "R1" }
+gm_stage = { vccs = "1m", between = ["e", "gnd"], control = ["b", "gnd"] }
+sense_amp = { ccvs = "50", between = ["g", "gnd"], control = "R1" }
 R5 = { resistor = "680", between = ["g", "c"] }
-F1 = { cccs = "0.5", between = ["gnd", "c"], control = "L2" }
+mirror = { cccs = "0.5", between = ["gnd", "c"], control = "L2" }
 U1 = { opamp = "ideal", noninverting = "c", inverting = "h", output = "o" }
 R6 = { resistor = "10k", between = ["o", "h"] }
 R7 = { resistor = "10k", between = ["h", "gnd"] }
