@@ -77,3 +77,10 @@ pub fn design(data: &[u8]) {
         let _ = metrics::figures(&ev, &grid, &trace, i, &MetricOptions::default());
     }
 }
+
+/// The design file's TOML tree rendered canonically (for the cross-check against a
+/// reference TOML library): tables as `{key=value,…}` in key order, arrays as `[…]`,
+/// strings quoted with Rust's escapes, numbers as Rust prints them; or the error message.
+pub fn toml_tree(text: &str) -> Result<String, String> {
+    crate::design::render_tree(text)
+}

@@ -54,6 +54,7 @@ pub mod export;
 pub mod fuzz_targets;
 pub mod ladders;
 pub mod metrics;
+pub mod names;
 pub mod network;
 pub mod response;
 pub mod solve;

@@ -10,6 +10,7 @@
 //! resolves references between parts (a coupling's inductors, a current-controlled source's
 //! control) when [`NetworkBuilder::build`] is called.
 
+use crate::names::NameIndex;
 use crate::units::VALUE_LIMIT;
 use num_complex::Complex64;
 use std::collections::HashMap;
@@ -242,6 +243,8 @@ pub struct Network {
     pub title: String,
     nodes: Vec<String>,
     parts: Vec<Part>,
+    node_index: NameIndex,
+    part_index: NameIndex,
 }
 
 impl Network {
@@ -255,7 +258,11 @@ impl Network {
     }
     /// Looks a node up by name.
     pub fn node(&self, name: &str) -> Option<NodeId> {
-        self.nodes.iter().position(|n| n == name).map(NodeId)
+        self.node_index
+            .find(name, |p| {
+                self.nodes.get(p as usize).map_or("", String::as_str)
+            })
+            .map(|p| NodeId(p as usize))
     }
     /// All parts in order of definition.
     pub fn parts(&self) -> &[Part] {
@@ -267,7 +274,11 @@ impl Network {
     }
     /// Looks a part up by name.
     pub fn part_id(&self, name: &str) -> Option<PartId> {
-        self.parts.iter().position(|p| p.name == name).map(PartId)
+        self.part_index
+            .find(name, |p| {
+                self.parts.get(p as usize).map_or("", |x| x.name.as_str())
+            })
+            .map(|p| PartId(p as usize))
     }
     /// Number of nodes including ground.
     pub fn node_count(&self) -> usize {
@@ -379,6 +390,24 @@ pub enum NetworkError {
     },
 }
 
+impl NetworkError {
+    /// The part the error is about, where it names one.
+    pub fn part_name(&self) -> Option<&str> {
+        match self {
+            NetworkError::DuplicateName { name } => Some(name),
+            NetworkError::NotPositive { part, .. }
+            | NetworkError::OutOfRange { part, .. }
+            | NetworkError::CouplingOutOfRange { part, .. }
+            | NetworkError::MissingPart { part, .. }
+            | NetworkError::WrongKind { part, .. }
+            | NetworkError::BadCoupling { part, .. }
+            | NetworkError::ShortedPart { part, .. }
+            | NetworkError::GroundedOutput { part } => Some(part),
+            NetworkError::BadName { .. } | NetworkError::TooLarge { .. } => None,
+        }
+    }
+}
+
 /// Largest number of parts a network may have (memory safety against absurd inputs).
 pub const MAX_PARTS: usize = 20_000_000;
 
@@ -420,10 +449,12 @@ enum Pending {
 pub struct NetworkBuilder {
     title: String,
     nodes: Vec<String>,
-    node_index: HashMap<String, NodeId>,
-    parts: Vec<(String, Option<PartKind>, Option<f64>)>,
+    node_index: NameIndex,
+    /// Parts in order; a part whose references are resolved by `build` holds a stand-in
+    /// kind until then (its entry in `pending` says what it will be).
+    parts: Vec<Part>,
     pending: HashMap<usize, Pending>,
-    names: HashMap<String, usize>,
+    part_index: NameIndex,
 }
 
 fn check_positive(part: &str, what: &'static str, value: f64) -> Result<f64, NetworkError> {
@@ -458,22 +489,27 @@ fn check_phasor(part: &str, value: Complex64) -> Result<Complex64, NetworkError>
 impl NetworkBuilder {
     /// A new, empty network with a title.
     pub fn new(title: impl Into<String>) -> Self {
-        let mut node_index = HashMap::new();
-        node_index.insert(GROUND_NAME.to_string(), NodeId::GROUND);
+        let nodes = vec![GROUND_NAME.to_string()];
+        let mut node_index = NameIndex::default();
+        node_index.insert(GROUND_NAME, 0, |_| GROUND_NAME);
         NetworkBuilder {
             title: title.into(),
-            nodes: vec![GROUND_NAME.to_string()],
+            nodes,
             node_index,
             parts: Vec::new(),
             pending: HashMap::new(),
-            names: HashMap::new(),
+            part_index: NameIndex::default(),
         }
     }
 
     /// The node of this name, created if new.
     pub fn node(&mut self, name: &str) -> Result<NodeId, NetworkError> {
-        if let Some(&id) = self.node_index.get(name) {
-            return Ok(id);
+        let nodes = &self.nodes;
+        if let Some(p) = self
+            .node_index
+            .find(name, |p| nodes.get(p as usize).map_or("", String::as_str))
+        {
+            return Ok(NodeId(p as usize));
         }
         if name.trim().is_empty() {
             return Err(NetworkError::BadName {
@@ -491,8 +527,40 @@ impl NetworkBuilder {
         }
         let id = NodeId(self.nodes.len());
         self.nodes.push(name.to_string());
-        self.node_index.insert(name.to_string(), id);
+        let nodes = &self.nodes;
+        self.node_index.insert(name, id.0 as u32, |p| {
+            nodes.get(p as usize).map_or("", String::as_str)
+        });
         Ok(id)
+    }
+
+    /// Makes room for about `parts` parts and as many nodes, so a large network is built
+    /// without growing its tables step by step.
+    pub fn reserve(&mut self, parts: usize) {
+        let parts = parts.min(MAX_PARTS);
+        self.parts.reserve(parts);
+        let list = &self.parts;
+        self.part_index.reserve(parts, |p| {
+            list.get(p as usize).map_or("", |x| x.name.as_str())
+        });
+        self.nodes.reserve(parts);
+        let nodes = &self.nodes;
+        self.node_index
+            .reserve(parts, |p| nodes.get(p as usize).map_or("", String::as_str));
+    }
+
+    /// The part of this name added so far, if any.
+    pub fn position(&self, name: &str) -> Option<PartId> {
+        self.find_part(name).map(PartId)
+    }
+
+    fn find_part(&self, name: &str) -> Option<usize> {
+        let parts = &self.parts;
+        self.part_index
+            .find(name, |p| {
+                parts.get(p as usize).map_or("", |x| x.name.as_str())
+            })
+            .map(|p| p as usize)
     }
 
     fn add(&mut self, name: &str, kind: Option<PartKind>) -> Result<usize, NetworkError> {
@@ -503,7 +571,7 @@ impl NetworkBuilder {
                 reason: "it is empty or contains white space",
             });
         }
-        if self.names.contains_key(name) {
+        if self.find_part(name).is_some() {
             return Err(NetworkError::DuplicateName {
                 name: name.to_string(),
             });
@@ -515,8 +583,20 @@ impl NetworkBuilder {
             });
         }
         let index = self.parts.len();
-        self.names.insert(name.to_string(), index);
-        self.parts.push((name.to_string(), kind, None));
+        self.parts.push(Part {
+            name: name.to_string(),
+            // Stand-in for a part resolved at build time (see `pending`).
+            kind: kind.unwrap_or(PartKind::Coupling {
+                first: PartId(usize::MAX),
+                second: PartId(usize::MAX),
+                k: 0.0,
+            }),
+            tolerance: None,
+        });
+        let parts = &self.parts;
+        self.part_index.insert(name, index as u32, |p| {
+            parts.get(p as usize).map_or("", |x| x.name.as_str())
+        });
         Ok(index)
     }
 
@@ -540,9 +620,9 @@ impl NetworkBuilder {
                 value: fraction,
             });
         }
-        if let Some(&i) = self.names.get(name) {
+        if let Some(i) = self.find_part(name) {
             if let Some(p) = self.parts.get_mut(i) {
-                p.2 = Some(fraction);
+                p.tolerance = Some(fraction);
             }
         }
         Ok(())
@@ -809,8 +889,8 @@ impl NetworkBuilder {
         role: &'static str,
         target: &str,
     ) -> Result<PartId, NetworkError> {
-        match self.names.get(target) {
-            Some(&i) => Ok(PartId(i)),
+        match self.find_part(target) {
+            Some(i) => Ok(PartId(i)),
             None => Err(NetworkError::MissingPart {
                 part: part.to_string(),
                 role,
@@ -819,40 +899,71 @@ impl NetworkBuilder {
         }
     }
 
+    /// The kind of part `i` while part `current` is being resolved: None for a part whose
+    /// references are not resolved yet (pending parts are resolved in order of definition).
+    fn kind_at(&self, i: usize, current: usize) -> Option<&PartKind> {
+        if i >= current && self.pending.contains_key(&i) {
+            return None;
+        }
+        self.parts.get(i).map(|p| &p.kind)
+    }
+
     /// Resolves references and returns the checked network.
     pub fn build(self) -> Result<Network, NetworkError> {
-        let mut kinds: Vec<Option<PartKind>> = self.parts.iter().map(|p| p.1.clone()).collect();
-        // Non-pending parts first, so that controls can be checked for kind.
-        let mut pending: Vec<(&usize, &Pending)> = self.pending.iter().collect();
-        pending.sort_by_key(|(i, _)| **i);
+        self.build_locating().map_err(|(e, _)| e)
+    }
+
+    /// As [`NetworkBuilder::build`]; on failure also the position of the part the error
+    /// names (for messages that point at where the part was written).
+    pub fn build_locating(self) -> Result<Network, (NetworkError, Option<PartId>)> {
+        let mut this = self;
+        this.resolve_all().map_err(|e| {
+            let at = e.part_name().and_then(|p| this.position(p));
+            (e, at)
+        })?;
+        Ok(Network {
+            title: this.title,
+            nodes: this.nodes,
+            parts: this.parts,
+            node_index: this.node_index,
+            part_index: this.part_index,
+        })
+    }
+
+    fn resolve_all(&mut self) -> Result<(), NetworkError> {
+        let mut pending: Vec<usize> = self.pending.keys().copied().collect();
+        pending.sort_unstable();
         let mut coupled: Vec<(PartId, PartId)> = Vec::new();
-        for &(&i, p) in &pending {
-            let name = &self.parts[i].0;
+        for &i in &pending {
+            let Some(p) = self.pending.get(&i) else {
+                continue;
+            };
+            let name = self.parts[i].name.clone();
             let kind = match p {
                 Pending::Coupling { first, second, k } => {
-                    let f = self.resolve(name, "coupled inductor", first)?;
-                    let s = self.resolve(name, "coupled inductor", second)?;
+                    let f = self.resolve(&name, "coupled inductor", first)?;
+                    let s = self.resolve(&name, "coupled inductor", second)?;
                     for (id, target) in [(f, first), (s, second)] {
-                        if !matches!(kinds[id.0], Some(PartKind::Inductor { .. })) {
+                        if !matches!(self.kind_at(id.0, i), Some(PartKind::Inductor { .. })) {
                             return Err(NetworkError::WrongKind {
-                                part: name.clone(),
+                                part: name,
                                 role: "coupled inductor",
                                 target: target.clone(),
-                                found: kind_word(&kinds, &self.pending, id.0),
+                                found: self.kind_word(id.0, i),
                                 expected: "an inductor",
                             });
                         }
                     }
                     if f == s {
                         return Err(NetworkError::BadCoupling {
-                            part: name.clone(),
+                            part: name,
                             reason: format!("couples inductor {first:?} to itself"),
                         });
                     }
                     let key = (f.min(s), f.max(s));
                     if coupled.contains(&key) {
                         return Err(NetworkError::BadCoupling {
-                            part: name.clone(),
+                            part: name,
                             reason: format!(
                                 "inductors {first:?} and {second:?} are already coupled"
                             ),
@@ -873,7 +984,7 @@ impl NetworkBuilder {
                 } => PartKind::Ccvs {
                     plus: *plus,
                     minus: *minus,
-                    control: self.sensable(name, control, &kinds)?,
+                    control: self.sensable(&name, control, i)?,
                     rm: *rm,
                 },
                 Pending::Cccs {
@@ -884,38 +995,18 @@ impl NetworkBuilder {
                 } => PartKind::Cccs {
                     from: *from,
                     to: *to,
-                    control: self.sensable(name, control, &kinds)?,
+                    control: self.sensable(&name, control, i)?,
                     gain: *gain,
                 },
             };
-            kinds[i] = Some(kind);
+            self.parts[i].kind = kind;
         }
-        let mut parts = Vec::with_capacity(self.parts.len());
-        for ((name, _, tolerance), kind) in self.parts.into_iter().zip(kinds) {
-            // Every entry is Some here: non-pending ones from the start, pending ones above.
-            if let Some(kind) = kind {
-                parts.push(Part {
-                    name,
-                    kind,
-                    tolerance,
-                });
-            }
-        }
-        Ok(Network {
-            title: self.title,
-            nodes: self.nodes,
-            parts,
-        })
+        Ok(())
     }
 
-    fn sensable(
-        &self,
-        name: &str,
-        control: &str,
-        kinds: &[Option<PartKind>],
-    ) -> Result<PartId, NetworkError> {
+    fn sensable(&self, name: &str, control: &str, current: usize) -> Result<PartId, NetworkError> {
         let id = self.resolve(name, "control", control)?;
-        let ok = match &kinds[id.0] {
+        let ok = match self.kind_at(id.0, current) {
             Some(k) => k.has_sensable_current(),
             // A pending CCVS is fine (its current is a branch unknown); a CCCS or coupling is not.
             None => matches!(self.pending.get(&id.0), Some(Pending::Ccvs { .. })),
@@ -925,27 +1016,23 @@ impl NetworkBuilder {
                 part: name.to_string(),
                 role: "control",
                 target: control.to_string(),
-                found: kind_word(kinds, &self.pending, id.0),
+                found: self.kind_word(id.0, current),
                 expected: "a part with a current of its own (not a coupling or a cccs)",
             });
         }
         Ok(id)
     }
-}
 
-fn kind_word(
-    kinds: &[Option<PartKind>],
-    pending: &HashMap<usize, Pending>,
-    i: usize,
-) -> &'static str {
-    match kinds.get(i) {
-        Some(Some(k)) => k.word(),
-        _ => match pending.get(&i) {
-            Some(Pending::Coupling { .. }) => "coupling",
-            Some(Pending::Ccvs { .. }) => "ccvs",
-            Some(Pending::Cccs { .. }) => "cccs",
-            None => "part",
-        },
+    fn kind_word(&self, i: usize, current: usize) -> &'static str {
+        match self.kind_at(i, current) {
+            Some(k) => k.word(),
+            None => match self.pending.get(&i) {
+                Some(Pending::Coupling { .. }) => "coupling",
+                Some(Pending::Ccvs { .. }) => "ccvs",
+                Some(Pending::Cccs { .. }) => "cccs",
+                None => "part",
+            },
+        }
     }
 }
 

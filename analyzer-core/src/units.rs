@@ -147,6 +147,7 @@ fn prefix_factor(c: char) -> Option<f64> {
 /// use analyzer_core::units::{parse_value, Quantity};
 /// assert_eq!(parse_value("4k7", Quantity::Resistance).unwrap(), 4700.0);
 /// assert!((parse_value("2.2 nF", Quantity::Capacitance).unwrap() - 2.2e-9).abs() < 1e-24);
+/// assert_eq!(parse_value("1k ohm", Quantity::Resistance).unwrap(), 1000.0);
 /// assert!(parse_value("10kk", Quantity::Resistance).is_err());
 /// ```
 pub fn parse_value(text: &str, quantity: Quantity) -> Result<f64, ValueError> {
@@ -160,43 +161,39 @@ pub fn parse_value(text: &str, quantity: Quantity) -> Result<f64, ValueError> {
     if s.is_empty() {
         return Err(fail("empty value"));
     }
-    let chars: Vec<(usize, char)> = s.char_indices().collect();
-    let mut i = 0;
-    let mut negative = false;
-    if let Some(&(_, c)) = chars.first() {
-        if c == '-' || c == '+' {
-            negative = c == '-';
-            i = 1;
-        }
-    }
+    // Digits and signs are ASCII, so byte positions below are character boundaries.
+    let b = s.as_bytes();
     let digits_from = |mut j: usize| {
-        while j < chars.len() && chars[j].1.is_ascii_digit() {
+        while j < b.len() && b[j].is_ascii_digit() {
             j += 1;
         }
         j
     };
+    let mut i = 0;
+    let negative = b[0] == b'-';
+    if b[0] == b'-' || b[0] == b'+' {
+        i = 1;
+    }
     let int_start = i;
     i = digits_from(i);
-    let int_digits = &s[byte_at(&chars, s, int_start)..byte_at(&chars, s, i)];
-    if int_digits.is_empty() && !(i < chars.len() && chars[i].1 == '.') {
+    let int_digits = &s[int_start..i];
+    if int_digits.is_empty() && b.get(i) != Some(&b'.') {
         return Err(fail("no digits"));
     }
 
     // The letter code: digits, a prefix letter (or R), digits, optional unit word.
-    if !int_digits.is_empty() && i < chars.len() {
-        let letter = chars[i].1;
-        let letter_factor = if letter == 'R' {
-            Some(1.0)
-        } else {
-            prefix_factor(letter)
-        };
-        let after = i + 1;
-        if let Some(factor) = letter_factor {
-            if after < chars.len() && chars[after].1.is_ascii_digit() {
+    if !int_digits.is_empty() {
+        if let Some(letter) = s[i..].chars().next() {
+            let factor = if letter == 'R' {
+                Some(1.0)
+            } else {
+                prefix_factor(letter)
+            };
+            let after = i + letter.len_utf8();
+            if let (Some(factor), true) = (factor, b.get(after).is_some_and(u8::is_ascii_digit)) {
                 let frac_end = digits_from(after);
-                let frac = &s[byte_at(&chars, s, after)..byte_at(&chars, s, frac_end)];
-                let rest = &s[byte_at(&chars, s, frac_end)..];
-                check_unit_word(rest.trim_start(), quantity, &fail)?;
+                let frac = &s[after..frac_end];
+                check_unit_word(s[frac_end..].trim_start(), quantity, &fail)?;
                 if letter == 'R' && quantity != Quantity::Resistance {
                     return Err(fail("the letter code R marks ohms"));
                 }
@@ -209,17 +206,15 @@ pub fn parse_value(text: &str, quantity: Quantity) -> Result<f64, ValueError> {
     }
 
     // A plain decimal number, optional exponent.
-    if i < chars.len() && chars[i].1 == '.' {
+    if b.get(i) == Some(&b'.') {
         i = digits_from(i + 1);
     }
-    let mantissa_end = i;
-    if mantissa_end == int_start || &s[byte_at(&chars, s, int_start)..byte_at(&chars, s, i)] == "."
-    {
+    if &s[int_start..i] == "." || i == int_start {
         return Err(fail("no digits"));
     }
-    if i < chars.len() && (chars[i].1 == 'e' || chars[i].1 == 'E') {
+    if matches!(b.get(i), Some(b'e' | b'E')) {
         let mut j = i + 1;
-        if j < chars.len() && (chars[j].1 == '-' || chars[j].1 == '+') {
+        if matches!(b.get(j), Some(b'-' | b'+')) {
             j += 1;
         }
         let k = digits_from(j);
@@ -228,18 +223,42 @@ pub fn parse_value(text: &str, quantity: Quantity) -> Result<f64, ValueError> {
         }
         i = k;
     }
-    let number_text = &s[byte_at(&chars, s, int_start)..byte_at(&chars, s, i)];
-    let number: f64 = number_text.parse().map_err(|_| fail("unreadable number"))?;
-    let rest = s[byte_at(&chars, s, i)..].trim_start();
-    let factor = read_suffix(rest, quantity, &fail)?;
+    let number: f64 = s[int_start..i]
+        .parse()
+        .map_err(|_| fail("unreadable number"))?;
+    let factor = read_suffix(s[i..].trim_start(), quantity, &fail)?;
     finish(number * factor, negative, &fail)
 }
 
-fn byte_at(chars: &[(usize, char)], s: &str, i: usize) -> usize {
-    chars.get(i).map_or(s.len(), |&(b, _)| b)
+/// The unit words of a quantity as a message shows them: "Ω, ohm or R".
+fn unit_list(quantity: Quantity) -> &'static str {
+    match quantity {
+        Quantity::Resistance => "Ω, ohm or R",
+        Quantity::Capacitance => "F",
+        Quantity::Inductance => "H",
+        Quantity::Frequency => "Hz",
+        Quantity::Voltage => "V",
+        Quantity::Current => "A",
+        Quantity::Conductance => "S",
+        Quantity::Ratio => "no unit",
+        Quantity::Angle => "° or deg",
+        Quantity::Percent => "%",
+    }
 }
 
-/// Reads what follows the number: nothing, a unit word, a prefix, or a prefix and unit word.
+fn unit_mismatch(unit: &str, quantity: Quantity) -> String {
+    if quantity == Quantity::Ratio {
+        return format!("unit {unit:?} does not fit a plain number (give no unit)");
+    }
+    format!(
+        "unit {unit:?} does not fit a {} (use {} or no unit)",
+        quantity.name(),
+        unit_list(quantity)
+    )
+}
+
+/// Reads what follows the number: nothing, a unit word, a prefix, or a prefix and unit word,
+/// with or without a space between them.
 fn read_suffix(
     rest: &str,
     quantity: Quantity,
@@ -261,11 +280,16 @@ fn read_suffix(
     if quantity.unit_words().contains(&rest) {
         return Ok(1.0);
     }
+    if rest.get(..3).is_some_and(|m| m.eq_ignore_ascii_case("meg")) {
+        return Err(fail(
+            "\"meg\" is not a prefix here: write M for mega (1M) or m for milli (1m)",
+        ));
+    }
     let mut it = rest.chars();
     let first = it.next().unwrap_or(' ');
-    let tail = it.as_str();
+    let tail = it.as_str().trim_start();
     if let Some(factor) = prefix_factor(first) {
-        if quantity == Quantity::Angle || quantity == Quantity::Percent {
+        if quantity == Quantity::Angle {
             return Err(fail("no prefix is allowed here"));
         }
         if tail.is_empty() || quantity.unit_words().contains(&tail) {
@@ -274,15 +298,9 @@ fn read_suffix(
         if tail.chars().next().and_then(prefix_factor).is_some() {
             return Err(fail("two prefixes"));
         }
-        return Err(fail(&format!(
-            "unit {tail:?} does not fit a {}",
-            quantity.name()
-        )));
+        return Err(fail(&unit_mismatch(tail, quantity)));
     }
-    Err(fail(&format!(
-        "unit {rest:?} does not fit a {}",
-        quantity.name()
-    )))
+    Err(fail(&unit_mismatch(rest, quantity)))
 }
 
 fn check_unit_word(
@@ -295,10 +313,7 @@ fn check_unit_word(
     } else if rest.chars().next().and_then(prefix_factor).is_some() {
         Err(fail("a prefix after the letter code"))
     } else {
-        Err(fail(&format!(
-            "unit {rest:?} does not fit a {}",
-            quantity.name()
-        )))
+        Err(fail(&unit_mismatch(rest, quantity)))
     }
 }
 
@@ -453,6 +468,19 @@ mod tests {
             parse_value("1 mHz", Quantity::Frequency).unwrap(),
             1e-3
         ));
+        // A unit after a prefixed value, with or without a space (common practice).
+        for (text, q, v) in [
+            ("1k ohm", Quantity::Resistance, 1e3),
+            ("1k Ω", Quantity::Resistance, 1e3),
+            ("1 k Ω", Quantity::Resistance, 1e3),
+            ("1kohms", Quantity::Resistance, 1e3),
+            ("100n F", Quantity::Capacitance, 100e-9),
+            ("4.7 µ H", Quantity::Inductance, 4.7e-6),
+            ("2 M Hz", Quantity::Frequency, 2e6),
+            ("1 %", Quantity::Percent, 0.01),
+        ] {
+            assert!(close(parse_value(text, q).unwrap(), v), "{text}");
+        }
     }
 
     #[test]
@@ -466,10 +494,21 @@ mod tests {
             ("-", "no digits"),
             ("4k7k", "a prefix after the letter code"),
             ("1e", "exponent without digits"),
-            ("10 kHz", "unit \"Hz\" does not fit a resistance"),
+            (
+                "10 kHz",
+                "unit \"Hz\" does not fit a resistance (use Ω, ohm or R or no unit)",
+            ),
             ("1e-40", "magnitude below 1e-30"),
             (".", "no digits"),
-            ("1..2", "unit \".2\" does not fit a resistance"),
+            (
+                "1..2",
+                "unit \".2\" does not fit a resistance (use Ω, ohm or R or no unit)",
+            ),
+            (
+                "1meg",
+                "\"meg\" is not a prefix here: write M for mega (1M) or m for milli (1m)",
+            ),
+            ("1 k k", "two prefixes"),
         ] {
             let err = parse_value(text, Quantity::Resistance).unwrap_err();
             assert_eq!(err.reason, reason, "for {text:?}");

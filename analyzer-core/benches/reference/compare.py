@@ -3,7 +3,7 @@
 very matrices analyzer-core solves, in one run.
 
     pip install numpy scipy
-    python3 analyzer-core/benches/reference/compare.py
+    python3 analyzer-core/benches/reference/compare.py [--end-to-end]
 
 It writes the systems with `cargo run --release --example dump_systems`, times analyzer-core
 with `cargo bench --bench per_point` (whole solve-only sweeps, 1 and 2 threads, fastest
@@ -15,6 +15,12 @@ with one thread each (assembly of A(ω) = G + jωC included in every figure):
   (scipy.sparse.csgraph), where it is tridiagonal, and solved per frequency by LAPACK's
   tridiagonal solver with partial pivoting (scipy.linalg.lapack.zgtsv).
 and prints ns per point with the ratios the performance targets are stated in.
+
+Last, end to end on a very large design: a generated RC line of 100,000 sections (200,002
+parts, 12 MB of TOML, the design `cargo bench --bench front_end` reads). Ours is the whole
+command `analyzer sweep FILE --no-plot -q` (read, check, assemble, order, solve 19 points,
+figures, CSV), wall clock; scipy's is only its sparse LU on the same 19 frequencies,
+assembly of A(ω) included.
 General-purpose reference libraries; not needed by the tests.
 """
 import os
@@ -129,8 +135,59 @@ def ours():
     return rows
 
 
+def rc_line(path, sections):
+    """The RC line design of benches/front_end.rs, written to `path`."""
+    with open(path, "w") as f:
+        f.write('title = "RC line (benchmark)"\n[sweep]\nfrom = "1 kHz"\nto = "100 MHz"\n'
+                'per_decade = 3.6\n[parts]\nV1 = { voltage = "1 V", between = ["n0", "gnd"] }\n')
+        for k in range(sections):
+            f.write(f'R{k} = {{ resistor = "10", between = ["n{k}", "n{k + 1}"] }}\n'
+                    f'C{k} = {{ capacitor = "1p", between = ["n{k + 1}", "gnd"] }}\n')
+        f.write(f'RL = {{ resistor = "1k", between = ["n{sections}", "gnd"] }}\n[responses]\n'
+                f'gain = {{ ratio = ["n{sections}", "n0"] }}\n')
+
+
+def end_to_end(out, sections=100_000):
+    design = f"{out}/rc_line.toml"
+    rc_line(design, sections)
+    subprocess.run(["cargo", "build", "--release", "-q", "-p", "analyzer-cli"], cwd=ROOT,
+                   check=True)
+    subprocess.run(["cargo", "run", "--release", "-q", "-p", "analyzer-core", "--example",
+                    "dump_systems", out, design, "rc_line"], cwd=ROOT, check=True,
+                   capture_output=True)
+    exe = os.path.join(ROOT, "target", "release", "analyzer")
+
+    def run_ours():
+        t = time.perf_counter()
+        subprocess.run([exe, "sweep", design, "--no-plot", "-q", "-o", f"{out}/rc_out"],
+                       check=True)
+        return time.perf_counter() - t
+
+    mine = fastest(run_ours, 7)
+    n, r, c, g, cc, b = load(f"{out}/rc_line.txt")
+    # The sweep's 19 frequencies: 1 kHz to 100 MHz at 3.6 per decade, both ends exact.
+    w = 2 * np.pi * np.logspace(3, 8, 19)
+
+    def run_scipy():
+        t = time.perf_counter()
+        for wk in w:
+            A = csc_matrix((g + 1j * wk * cc, (r, c)), shape=(n, n))
+            x = splu(A).solve(b)
+        assert np.all(np.isfinite(x))
+        return time.perf_counter() - t
+
+    ref = fastest(run_scipy, 3)
+    print(f"end to end, RC line of {sections} sections ({n} unknowns, 19 points): ours "
+          f"{mine * 1e3:.0f} ms (whole command), scipy splu {ref * 1e3:.0f} ms (solve and "
+          f"assembly only): {ref / mine:.1f}x")
+
+
 def main():
     out = tempfile.mkdtemp()
+    if "--end-to-end" in sys.argv:
+        end_to_end(out)
+        return
+
     subprocess.run(["cargo", "run", "--release", "-q", "-p", "analyzer-core", "--example",
                     "dump_systems", out], cwd=ROOT, check=True, capture_output=True)
     mine = ours()
@@ -157,6 +214,7 @@ def main():
                   f"2 threads against floor/2 {two / (floor / 2):.2f}x")
     print("two threads against one (ours, fastest runs): " + ", ".join(
         f"{k} {v[4]:.2f}x" for k, v in mine.items()))
+    end_to_end(out)
 
 
 if __name__ == "__main__":

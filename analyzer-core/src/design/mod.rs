@@ -1,0 +1,1099 @@
+//! The design file: a TOML document of our own schema, read into a checked [`Design`].
+//!
+//! ```toml
+//! title = "Anti-alias stage for a soil-moisture probe ADC"
+//!
+//! [sweep]
+//! from = "10 Hz"
+//! to = "1 MHz"
+//! per_decade = 100          # or: points = 201 (linear), or: at = ["50 Hz", "1 kHz"]
+//!
+//! [parts]
+//! V1 = { voltage = "1 V", between = ["src", "gnd"] }
+//! R1 = { resistor = "10k", between = ["src", "out"], tolerance = "1%" }
+//! C1 = { capacitor = "2n2", between = ["out", "gnd"] }
+//!
+//! [responses]
+//! gain = { ratio = ["out", "src"] }
+//! zin  = { impedance = ["src", "gnd"] }
+//! ```
+//!
+//! Every error carries the line and column (1-based) of the value or key at fault and says
+//! what to change. The full reference of part kinds is in the README.
+//!
+//! The TOML grammar is `toml_parser`'s; [`tree`] assembles the document in a compact form
+//! (a 200,000-part design reads in a fraction of a second), and this module walks it.
+
+mod tree;
+
+use crate::network::{Network, NetworkBuilder, NetworkError, NodeId, PartKind};
+use crate::response::{Probe, ResponseKind, ResponseSpec};
+use crate::sweep::{Grid, GridError};
+use crate::units::{parse_value, Hertz, Quantity};
+use num_complex::Complex64;
+use smallvec::SmallVec;
+use std::borrow::Cow;
+use std::ops::Range;
+use tree::{Key, Scalar, Table, Value};
+
+/// The TOML tree of `text` rendered canonically (see [`crate::fuzz_targets::toml_tree`]).
+pub(crate) fn render_tree(text: &str) -> Result<String, String> {
+    fn show(v: Value<'_, '_>) -> String {
+        match v {
+            Value::Scalar { .. } => match v.scalar() {
+                Some(Scalar::Str(s)) => format!("{s:?}"),
+                Some(Scalar::Int(i)) => i.to_string(),
+                Some(Scalar::Float(f)) => format!("{f:?}"),
+                Some(Scalar::Bool(b)) => b.to_string(),
+                Some(Scalar::DateTime) | None => "?".into(),
+            },
+            Value::Table(t) => {
+                let mut inner: Vec<(String, String)> = t
+                    .entries()
+                    .map(|(k, v)| (format!("{:?}", k.text), show(v)))
+                    .collect();
+                inner.sort();
+                let inner: Vec<String> =
+                    inner.into_iter().map(|(k, v)| format!("{k}={v}")).collect();
+                format!("{{{}}}", inner.join(","))
+            }
+            Value::Array(a) => {
+                let inner: Vec<String> = a.items().map(show).collect();
+                format!("[{}]", inner.join(","))
+            }
+        }
+    }
+    struct Keep;
+    impl<'s> tree::Consumer<'s> for Keep {
+        fn offer(&mut self, _: &[Cow<'s, str>], _: Key<'s>, _: Table<'_, 's>) -> tree::Offer {
+            tree::Offer::Kept
+        }
+    }
+    match tree::parse_with(text, &mut Keep) {
+        Ok(doc) => Ok(show(Value::Table(doc.root()))),
+        Err(tree::Failure::Syntax(e)) => Err(e.message),
+        Err(tree::Failure::Stopped) => Err("stopped".into()),
+    }
+}
+
+/// Largest design file accepted, in bytes.
+pub const MAX_DESIGN_BYTES: usize = 64 * 1024 * 1024;
+
+/// An error in a design file, with its position.
+#[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
+#[error("{line}:{column}: {message}")]
+pub struct DesignError {
+    /// 1-based line.
+    pub line: usize,
+    /// 1-based column, in characters.
+    pub column: usize,
+    /// What is wrong and what to change.
+    pub message: String,
+}
+
+/// The sweep as the design gives it; any field may be overridden before building the grid.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct SweepSpec {
+    /// First frequency.
+    pub from: Option<Hertz>,
+    /// Last frequency.
+    pub to: Option<Hertz>,
+    /// Log spacing, points per decade.
+    pub per_decade: Option<f64>,
+    /// Linear spacing, number of points.
+    pub points: Option<usize>,
+    /// Explicit list.
+    pub at: Option<Vec<Hertz>>,
+}
+
+impl SweepSpec {
+    /// Builds the grid: a list if `at` is given, else linear if `points`, else log.
+    pub fn grid(&self) -> Result<Grid, GridError> {
+        if let Some(list) = &self.at {
+            return Grid::list(list.clone());
+        }
+        let from = self.from.unwrap_or(f64::NAN);
+        let to = self.to.unwrap_or(f64::NAN);
+        match (self.points, self.per_decade) {
+            (Some(points), _) => Grid::linear(from, to, points),
+            (None, Some(d)) => Grid::log(from, to, d),
+            (None, None) => Grid::log(from, to, 50.0),
+        }
+    }
+}
+
+/// A read design: the network, its sweep and its responses.
+#[derive(Clone, Debug)]
+pub struct Design {
+    /// The checked network.
+    pub network: Network,
+    /// The sweep as given.
+    pub sweep: SweepSpec,
+    /// The responses, in file order.
+    pub responses: Vec<ResponseSpec>,
+    /// Magnitude limits to check, in file order.
+    pub limits: Vec<crate::metrics::Limit>,
+    /// Whether the design mentions a mains, high-voltage or medical use in its title or
+    /// `caution` key, so reports carry the safety caution.
+    pub caution: bool,
+}
+
+/// Maps byte offsets to 1-based line and column.
+struct Positions<'a> {
+    text: &'a str,
+}
+
+impl Positions<'_> {
+    fn at(&self, offset: usize) -> (usize, usize) {
+        let offset = offset.min(self.text.len());
+        let mut line = 1;
+        let mut col = 1;
+        for (i, ch) in self.text.char_indices() {
+            if i >= offset {
+                break;
+            }
+            if ch == '\n' {
+                line += 1;
+                col = 1;
+            } else {
+                col += 1;
+            }
+        }
+        (line, col)
+    }
+
+    fn err(&self, span: Range<usize>, message: impl Into<String>) -> DesignError {
+        let (line, column) = self.at(span.start);
+        DesignError {
+            line,
+            column,
+            message: message.into(),
+        }
+    }
+}
+
+const KINDS: &[&str] = &[
+    "resistor",
+    "capacitor",
+    "inductor",
+    "voltage",
+    "current",
+    "vcvs",
+    "vccs",
+    "ccvs",
+    "cccs",
+    "opamp",
+    "coupling",
+];
+
+const PART_KEYS: &[&str] = &[
+    "between",
+    "control",
+    "k",
+    "tolerance",
+    "phase",
+    "noninverting",
+    "inverting",
+    "output",
+    "dc_gain",
+    "gbw",
+];
+
+const TOP_KEYS: &[&str] = &["title", "caution", "sweep", "parts", "responses", "limits"];
+const SWEEP_KEYS: &[&str] = &["from", "to", "per_decade", "points", "at"];
+const RESPONSE_KEYS: &[&str] = &["ratio", "impedance", "admittance", "loop_gain"];
+const LIMIT_KEYS: &[&str] = &["response", "from", "to", "min_db", "max_db"];
+
+fn backticked(list: &[&str]) -> String {
+    list.iter()
+        .map(|k| format!("`{k}`"))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// A table's entries by name, checked against the keys it may have.
+struct Fields<'d, 's> {
+    /// Entries in file order (a part has a handful: kept inline).
+    entries: SmallVec<[(Key<'s>, Value<'d, 's>); 8]>,
+}
+
+impl<'d, 's> Fields<'d, 's> {
+    /// The entries of `table`; a key outside `allowed` is an error made by `unknown`.
+    fn of(
+        table: Table<'d, 's>,
+        allowed: &[&str],
+        pos: &Positions<'_>,
+        unknown: impl Fn(&str) -> String,
+    ) -> Result<Self, DesignError> {
+        Self::of_any(table, &[allowed], pos, unknown)
+    }
+
+    /// As [`Fields::of`], with the allowed keys in several lists.
+    fn of_any(
+        table: Table<'d, 's>,
+        allowed: &[&[&str]],
+        pos: &Positions<'_>,
+        unknown: impl Fn(&str) -> String,
+    ) -> Result<Self, DesignError> {
+        let entries: SmallVec<[_; 8]> = table.entries().collect();
+        let known = |k: &str| allowed.iter().any(|list| list.contains(&k));
+        if let Some((k, _)) = entries.iter().find(|(k, _)| !known(&k.text)) {
+            return Err(pos.err(k.span.clone(), unknown(&k.text)));
+        }
+        Ok(Fields { entries })
+    }
+
+    /// The entries in file order.
+    fn entries(&self) -> impl Iterator<Item = &(Key<'s>, Value<'d, 's>)> + '_ {
+        self.entries.iter()
+    }
+
+    fn get(&self, key: &str) -> Option<&(Key<'s>, Value<'d, 's>)> {
+        self.entries.iter().find(|(k, _)| k.text == key)
+    }
+
+    fn value(&self, key: &str) -> Option<Value<'d, 's>> {
+        self.get(key).map(|e| e.1)
+    }
+}
+
+fn unknown_key(allowed: &'static [&'static str]) -> impl Fn(&str) -> String {
+    move |k| format!("unknown key `{k}`, expected one of {}", backticked(allowed))
+}
+
+/// A value that must be a table (`what` names it in the message).
+fn table<'d, 's>(
+    pos: &Positions<'_>,
+    v: Value<'d, 's>,
+    what: impl FnOnce() -> String,
+) -> Result<Table<'d, 's>, DesignError> {
+    match v {
+        Value::Table(t) => Ok(t),
+        other => Err(pos.err(
+            other.span(),
+            format!("{} must be a table, got a {}", what(), other.type_name()),
+        )),
+    }
+}
+
+/// A value that must be a string.
+fn string(pos: &Positions<'_>, v: Value<'_, '_>, what: &str) -> Result<String, DesignError> {
+    match v.scalar() {
+        Some(Scalar::Str(s)) => Ok(s.into_owned()),
+        _ => Err(pos.err(
+            v.span(),
+            format!("{what} must be a string, got a {}", v.type_name()),
+        )),
+    }
+}
+
+fn boolean(pos: &Positions<'_>, v: Value<'_, '_>, what: &str) -> Result<bool, DesignError> {
+    match v.scalar() {
+        Some(Scalar::Bool(b)) => Ok(b),
+        _ => Err(pos.err(
+            v.span(),
+            format!("{what} must be true or false, got a {}", v.type_name()),
+        )),
+    }
+}
+
+/// A list of strings (node names, part names); None if `v` is anything else.
+fn strings<'s>(v: Value<'_, 's>) -> Option<Vec<Cow<'s, str>>> {
+    let Value::Array(a) = v else { return None };
+    a.items()
+        .map(|x| match x.scalar() {
+            Some(Scalar::Str(s)) => Some(s),
+            _ => None,
+        })
+        .collect()
+}
+
+/// A number given as text with an optional prefix and unit (`"10 kHz"`), or as a TOML number.
+fn number(
+    pos: &Positions<'_>,
+    v: Value<'_, '_>,
+    q: Quantity,
+    what: &dyn std::fmt::Display,
+) -> Result<f64, DesignError> {
+    let x = match v.scalar() {
+        Some(Scalar::Str(t)) => {
+            parse_value(&t, q).map_err(|e| pos.err(v.span(), format!("{what}: {e}")))?
+        }
+        Some(Scalar::Int(i)) => i as f64,
+        Some(Scalar::Float(f)) => f,
+        _ => {
+            return Err(pos.err(
+                v.span(),
+                format!(
+                    "{what}: expected a number or a value such as \"10k\", got a {}",
+                    v.type_name()
+                ),
+            ))
+        }
+    };
+    if !x.is_finite() {
+        return Err(pos.err(v.span(), format!("{what}: {x} is not a finite number")));
+    }
+    if q == Quantity::Percent && !matches!(v.scalar(), Some(Scalar::Str(_))) {
+        return Err(pos.err(
+            v.span(),
+            format!("{what}: write a tolerance as text with a % sign, e.g. \"1%\""),
+        ));
+    }
+    Ok(x)
+}
+
+/// Reads a design from TOML text. Never panics; every problem is a [`DesignError`].
+pub fn parse(text: &str) -> Result<Design, DesignError> {
+    let pos = Positions { text };
+    if text.len() > MAX_DESIGN_BYTES {
+        return Err(pos.err(
+            0..0,
+            format!(
+                "the design is {} bytes, more than the limit of {MAX_DESIGN_BYTES} (64 MiB)",
+                text.len()
+            ),
+        ));
+    }
+    // Parts written as `NAME = { … }` below `[parts]` are added as the parser reaches them,
+    // so a generated design of 200,000 parts is never held as a tree.
+    let mut builder = NetworkBuilder::new("");
+    // About one part per line: room for them all at once (a guess too high costs address
+    // space, not memory).
+    builder.reserve(text.bytes().filter(|&c| c == b'\n').count() + 1);
+    let mut reader = PartsReader {
+        pos: &pos,
+        builder,
+        spans: Vec::new(),
+        error: None,
+    };
+    let doc = match tree::parse_with(text, &mut reader) {
+        Ok(doc) => doc,
+        Err(tree::Failure::Syntax(e)) => return Err(pos.err(e.span, e.message)),
+        Err(tree::Failure::Stopped) => {
+            return Err(reader
+                .error
+                .unwrap_or_else(|| pos.err(0..0, "the design could not be read")))
+        }
+    };
+    let top = Fields::of(doc.root(), TOP_KEYS, &pos, unknown_key(TOP_KEYS))?;
+    let title = match top.value("title") {
+        Some(v) => string(&pos, v, "title")?,
+        None => "untitled design".to_string(),
+    };
+    let caution_key = match top.value("caution") {
+        Some(v) => boolean(&pos, v, "caution")?,
+        None => false,
+    };
+    let parts = top.value("parts").ok_or_else(|| {
+        pos.err(
+            0..0,
+            "the design has no [parts] table; add the network's parts",
+        )
+    })?;
+    let parts_span = parts.span();
+    let parts = table(&pos, parts, || "[parts]".into())?;
+    if parts.len() == 0 && reader.spans.is_empty() {
+        return Err(pos.err(
+            parts_span,
+            "the [parts] table is empty; add the network's parts",
+        ));
+    }
+    // Parts written in other forms (`[parts.NAME]` tables, dotted keys, an inline [parts]).
+    for (key, value) in parts.entries() {
+        let entry = table(&pos, value, || format!("part {}", key.text))?;
+        reader.add(&key.text, entry)?;
+    }
+    let PartsReader { builder, spans, .. } = reader;
+    let mut network = builder.build_locating().map_err(|(e, at)| {
+        let span = at
+            .and_then(|i| spans.get(i.0).cloned())
+            .unwrap_or(parts_span.clone());
+        pos.err(span, e.to_string())
+    })?;
+    network.title = title.clone();
+
+    let sweep = match top.value("sweep") {
+        Some(s) => read_sweep(&pos, table(&pos, s, || "[sweep]".into())?)?,
+        None => SweepSpec::default(),
+    };
+
+    let mut responses = Vec::new();
+    if let Some(rs) = top.value("responses") {
+        for (key, value) in table(&pos, rs, || "[responses]".into())?.entries() {
+            let entry = table(&pos, value, || format!("response {}", key.text))?;
+            responses.push(read_response(&pos, &network, &key.text, entry)?);
+        }
+    }
+    if responses.is_empty() {
+        return Err(pos.err(
+            0..0,
+            "the design has no [responses]; name at least one, e.g. gain = { ratio = [\"out\", \"in\"] }",
+        ));
+    }
+    let mut limits = Vec::new();
+    if let Some(ls) = top.value("limits") {
+        for (key, value) in table(&pos, ls, || "[limits]".into())?.entries() {
+            let entry = table(&pos, value, || format!("limit {}", key.text))?;
+            limits.push(read_limit(&pos, &responses, &key.text, entry)?);
+        }
+    }
+    let lower = title.to_lowercase();
+    let caution = caution_key
+        || [
+            "mains",
+            "high-voltage",
+            "high voltage",
+            "medical",
+            "patient",
+            "line filter",
+            "230 v",
+            "120 v",
+        ]
+        .iter()
+        .any(|w| lower.contains(w));
+    Ok(Design {
+        network,
+        sweep,
+        responses,
+        limits,
+        caution,
+    })
+}
+
+fn read_sweep(pos: &Positions<'_>, t: Table<'_, '_>) -> Result<SweepSpec, DesignError> {
+    let s = Fields::of(t, SWEEP_KEYS, pos, unknown_key(SWEEP_KEYS))?;
+    let mut spec = SweepSpec::default();
+    if let Some(v) = s.value("from") {
+        spec.from = Some(number(pos, v, Quantity::Frequency, &"sweep from")?);
+    }
+    if let Some(v) = s.value("to") {
+        spec.to = Some(number(pos, v, Quantity::Frequency, &"sweep to")?);
+    }
+    if let Some(v) = s.value("per_decade") {
+        spec.per_decade = Some(number(pos, v, Quantity::Ratio, &"per_decade")?);
+    }
+    if let Some(v) = s.value("points") {
+        let p = match v.scalar() {
+            Some(Scalar::Int(p)) => p,
+            _ => {
+                return Err(pos.err(
+                    v.span(),
+                    format!("points must be a whole number, got a {}", v.type_name()),
+                ))
+            }
+        };
+        if p < 1 {
+            return Err(pos.err(v.span(), format!("points must be at least 2, got {p}")));
+        }
+        spec.points = Some(usize::try_from(p).unwrap_or(usize::MAX));
+    }
+    let given = ["per_decade", "points", "at"]
+        .iter()
+        .filter(|k| s.get(k).is_some())
+        .count();
+    if given > 1 {
+        let span = s
+            .value("at")
+            .or(s.value("points"))
+            .map_or(0..0, |v| v.span());
+        return Err(pos.err(
+            span,
+            "give only one of per_decade (log), points (linear) or at (a list)",
+        ));
+    }
+    if let Some(at) = s.value("at") {
+        if s.get("from").is_some() || s.get("to").is_some() {
+            return Err(pos.err(at.span(), "a list sweep (at) takes no from or to"));
+        }
+        let Value::Array(items) = at else {
+            return Err(pos.err(
+                at.span(),
+                "at takes a list of frequencies, e.g. at = [\"50 Hz\", \"1 kHz\"]",
+            ));
+        };
+        let mut list = Vec::with_capacity(items.len());
+        for v in items.items() {
+            list.push(number(pos, v, Quantity::Frequency, &"sweep at")?);
+        }
+        spec.at = Some(list);
+    }
+    // Build once here so range errors point at the sweep table.
+    if spec.at.is_some() || (spec.from.is_some() && spec.to.is_some()) {
+        spec.grid().map_err(|e| {
+            let span = s.value("from").or(s.value("at")).map_or(0..0, |v| v.span());
+            pos.err(span, e.to_string())
+        })?;
+    }
+    Ok(spec)
+}
+
+fn two_nodes<'s>(
+    pos: &Positions<'_>,
+    v: Value<'_, 's>,
+    what: &str,
+) -> Result<(Cow<'s, str>, Cow<'s, str>), DesignError> {
+    let shape = |got: Option<usize>| {
+        let got = got.map(|n| format!("; got {n}")).unwrap_or_default();
+        pos.err(
+            v.span(),
+            format!("{what} takes two node names, e.g. [\"a\", \"gnd\"]{got}"),
+        )
+    };
+    let Value::Array(a) = v else {
+        return Err(shape(None));
+    };
+    if a.len() != 2 {
+        return Err(shape(Some(a.len())));
+    }
+    let mut items = a.items().map(|x| match x.scalar() {
+        Some(Scalar::Str(s)) => Some(s),
+        _ => None,
+    });
+    match (items.next().flatten(), items.next().flatten()) {
+        (Some(p), Some(q)) => Ok((p, q)),
+        _ => Err(shape(None)),
+    }
+}
+
+/// Adds parts to the network as they are read, recording where each was written.
+struct PartsReader<'p, 't> {
+    pos: &'p Positions<'t>,
+    builder: NetworkBuilder,
+    /// Span of each part added, in the builder's order.
+    spans: Vec<Range<usize>>,
+    /// The error that stopped the parse.
+    error: Option<DesignError>,
+}
+
+impl PartsReader<'_, '_> {
+    fn add(&mut self, name: &str, entry: Table<'_, '_>) -> Result<(), DesignError> {
+        self.spans.push(entry.span());
+        add_part(self.pos, &mut self.builder, name, entry)
+    }
+}
+
+impl<'s> tree::Consumer<'s> for PartsReader<'_, '_> {
+    fn offer(
+        &mut self,
+        header: &[Cow<'s, str>],
+        key: Key<'s>,
+        value: Table<'_, 's>,
+    ) -> tree::Offer {
+        if header.len() != 1 || header[0] != "parts" {
+            return tree::Offer::Kept;
+        }
+        match self.add(&key.text, value) {
+            Ok(()) => tree::Offer::Taken,
+            Err(e) => {
+                self.error = Some(e);
+                tree::Offer::Stop
+            }
+        }
+    }
+}
+
+/// "part NAME" in messages, written only when one is.
+struct PartName<'a>(&'a str);
+
+impl std::fmt::Display for PartName<'_> {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "part {}", self.0)
+    }
+}
+
+fn add_part(
+    pos: &Positions<'_>,
+    b: &mut NetworkBuilder,
+    name: &str,
+    entry: Table<'_, '_>,
+) -> Result<(), DesignError> {
+    let span = entry.span();
+    let e = Fields::of_any(entry, &[KINDS, PART_KEYS], pos, |k| {
+        format!(
+                "unknown part kind or key `{k}`; a part takes one kind ({}) and the keys of that kind ({})",
+                KINDS.join(", "),
+                PART_KEYS.join(", ")
+            )
+    })?;
+    // One pass over the entries: the kinds given, in file order.
+    let mut kinds: [Option<(&str, Range<usize>)>; 2] = [None, None];
+    for (k, _) in e.entries() {
+        if let Some(kind) = KINDS.iter().find(|x| **x == k.text) {
+            let slot = if kinds[0].is_none() { 0 } else { 1 };
+            let earlier = kinds[slot]
+                .as_ref()
+                .is_some_and(|(_, s)| s.start < k.span.start);
+            if !earlier {
+                kinds[slot] = Some((kind, k.span.clone()));
+            }
+        }
+    }
+    if let [Some(a), Some(b)] = &kinds {
+        let (first, second) = if a.1.start <= b.1.start {
+            (a, b)
+        } else {
+            (b, a)
+        };
+        return Err(pos.err(
+            second.1.clone(),
+            format!(
+                "part {name} has two kinds ({} and {}); give exactly one",
+                first.0, second.0
+            ),
+        ));
+    }
+    let Some((kind, _)) = kinds[0].clone() else {
+        return Err(pos.err(
+            span,
+            format!("part {name} has no kind; give one of {}", KINDS.join(", ")),
+        ));
+    };
+    // Keys each kind allows besides its own.
+    let allowed: &[&str] = match kind {
+        "resistor" | "capacitor" | "inductor" => &["between", "tolerance"],
+        "voltage" | "current" => &["between", "phase"],
+        "vcvs" | "vccs" | "ccvs" | "cccs" => &["between", "control"],
+        "opamp" => &["noninverting", "inverting", "output", "dc_gain", "gbw"],
+        _ => &["k"],
+    };
+    if let Some((k, _)) = e
+        .entries()
+        .find(|(k, _)| PART_KEYS.contains(&&*k.text) && !allowed.contains(&&*k.text))
+    {
+        return Err(pos.err(
+            k.span.clone(),
+            format!(
+                "key {} does not apply to a {kind} (part {name}); it takes {}",
+                k.text,
+                allowed.join(", ")
+            ),
+        ));
+    }
+    let between = || -> Result<Value<'_, '_>, DesignError> {
+        e.value("between").ok_or_else(|| {
+            pos.err(
+                span.clone(),
+                format!("part {name} ({kind}) needs between = [\"node\", \"node\"]"),
+            )
+        })
+    };
+    let net_err = |e: NetworkError| pos.err(span.clone(), e.to_string());
+    let what = PartName(name);
+    let value = |v: Value<'_, '_>, q: Quantity| number(pos, v, q, &what);
+    let kind_value = e
+        .value(kind)
+        .ok_or_else(|| pos.err(span.clone(), "missing value"))?;
+    match kind {
+        "resistor" | "capacitor" | "inductor" => {
+            let (a, bb) = two_nodes(pos, between()?, "between")?;
+            let q = match kind {
+                "resistor" => Quantity::Resistance,
+                "capacitor" => Quantity::Capacitance,
+                _ => Quantity::Inductance,
+            };
+            let x = value(kind_value, q)?;
+            let r = match kind {
+                "resistor" => b.resistor(name, &a, &bb, x),
+                "capacitor" => b.capacitor(name, &a, &bb, x),
+                _ => b.inductor(name, &a, &bb, x),
+            };
+            r.map_err(|e| match e {
+                NetworkError::NotPositive { .. } | NetworkError::OutOfRange { .. } => {
+                    pos.err(kind_value.span(), e.to_string())
+                }
+                other => net_err(other),
+            })?;
+            if let Some(t) = e.value("tolerance") {
+                let frac = value(t, Quantity::Percent)?;
+                b.tolerance(name, frac)
+                    .map_err(|e| pos.err(t.span(), e.to_string()))?;
+            }
+        }
+        "voltage" | "current" => {
+            let (a, bb) = two_nodes(pos, between()?, "between")?;
+            let q = if kind == "voltage" {
+                Quantity::Voltage
+            } else {
+                Quantity::Current
+            };
+            let magnitude = value(kind_value, q)?;
+            let phase = match e.value("phase") {
+                Some(p) => value(p, Quantity::Angle)?,
+                None => 0.0,
+            };
+            let phasor = Complex64::from_polar(magnitude, phase.to_radians());
+            let r = if kind == "voltage" {
+                b.voltage_source(name, &a, &bb, phasor)
+            } else {
+                b.current_source(name, &a, &bb, phasor)
+            };
+            r.map_err(net_err)?;
+        }
+        "vcvs" | "vccs" | "ccvs" | "cccs" => {
+            let (a, bb) = two_nodes(pos, between()?, "between")?;
+            let control = e.value("control").ok_or_else(|| {
+                pos.err(
+                    span.clone(),
+                    if kind.starts_with('v') {
+                        format!("part {name} ({kind}) needs control = [\"node\", \"node\"], the voltage it senses")
+                    } else {
+                        format!("part {name} ({kind}) needs control = \"PART\", the part whose current it senses")
+                    },
+                )
+            })?;
+            let vq = match kind {
+                "vcvs" | "cccs" => Quantity::Ratio,
+                "vccs" => Quantity::Conductance,
+                _ => Quantity::Resistance,
+            };
+            let g = value(kind_value, vq)?;
+            let r = if kind.starts_with('v') {
+                let pair = strings(control).filter(|p| p.len() == 2);
+                let Some(p) = pair else {
+                    return Err(pos.err(
+                        control.span(),
+                        format!("part {name} ({kind}) senses a voltage: control takes two node names, e.g. [\"in\", \"gnd\"]"),
+                    ));
+                };
+                if kind == "vcvs" {
+                    b.vcvs(name, (&a, &bb), (&p[0], &p[1]), g)
+                } else {
+                    b.vccs(name, (&a, &bb), (&p[0], &p[1]), g)
+                }
+            } else {
+                let Some(Scalar::Str(part)) = control.scalar() else {
+                    return Err(pos.err(
+                        control.span(),
+                        format!("part {name} ({kind}) senses a current: control takes the name of a part, e.g. \"V1\""),
+                    ));
+                };
+                if kind == "ccvs" {
+                    b.ccvs(name, (&a, &bb), &part, g)
+                } else {
+                    b.cccs(name, (&a, &bb), &part, g)
+                }
+            };
+            r.map_err(net_err)?;
+        }
+        "opamp" => {
+            let model = string(pos, kind_value, &format!("op-amp {name}: opamp"))?;
+            let pin = |key: &str| -> Result<String, DesignError> {
+                match e.value(key) {
+                    Some(v) => string(pos, v, &format!("op-amp {name}: {key}")),
+                    None => Err(pos.err(
+                        span.clone(),
+                        format!("op-amp {name} needs {key} = \"node\""),
+                    )),
+                }
+            };
+            let (np, nm, out) = (pin("noninverting")?, pin("inverting")?, pin("output")?);
+            match model.as_str() {
+                "ideal" => {
+                    for k in ["dc_gain", "gbw"] {
+                        if let Some(s) = e.value(k) {
+                            return Err(pos.err(s.span(), format!("an ideal op-amp takes no {k}; use opamp = \"single-pole\" for a finite one")));
+                        }
+                    }
+                    b.ideal_opamp(name, &np, &nm, &out).map_err(net_err)?;
+                }
+                "single-pole" => {
+                    let dc = e.value("dc_gain").ok_or_else(|| pos.err(span.clone(), format!("op-amp {name} (single-pole) needs dc_gain, e.g. dc_gain = \"200k\"")))?;
+                    let gbw = e.value("gbw").ok_or_else(|| {
+                        pos.err(
+                            span.clone(),
+                            format!("op-amp {name} (single-pole) needs gbw, e.g. gbw = \"10 MHz\""),
+                        )
+                    })?;
+                    let (dcv, gv) = (
+                        value(dc, Quantity::Ratio)?,
+                        value(gbw, Quantity::Frequency)?,
+                    );
+                    b.single_pole_opamp(name, &np, &nm, &out, dcv, gv)
+                        .map_err(net_err)?;
+                }
+                other => {
+                    return Err(pos.err(
+                        kind_value.span(),
+                        format!("unknown op-amp model {other:?}; use \"ideal\" or \"single-pole\""),
+                    ));
+                }
+            }
+        }
+        _ => {
+            let pair = strings(kind_value).filter(|p| p.len() == 2);
+            let Some(p) = pair else {
+                return Err(pos.err(
+                    kind_value.span(),
+                    "coupling takes the names of two inductors, e.g. [\"L1\", \"L2\"]",
+                ));
+            };
+            let kv = e.value("k").ok_or_else(|| {
+                pos.err(
+                    span.clone(),
+                    format!("coupling {name} needs k, the coupling coefficient (0 < k ≤ 1)"),
+                )
+            })?;
+            let k = value(kv, Quantity::Ratio)?;
+            b.coupling(name, &p[0], &p[1], k)
+                .map_err(|e| pos.err(kv.span(), e.to_string()))?;
+        }
+    }
+    Ok(())
+}
+
+fn read_limit(
+    pos: &Positions<'_>,
+    responses: &[ResponseSpec],
+    name: &str,
+    entry: Table<'_, '_>,
+) -> Result<crate::metrics::Limit, DesignError> {
+    let span = entry.span();
+    let e = Fields::of(entry, LIMIT_KEYS, pos, unknown_key(LIMIT_KEYS))?;
+    let need = |key: &str| {
+        e.value(key)
+            .ok_or_else(|| pos.err(span.clone(), format!("limit {name} needs {key}")))
+    };
+    let rv = need("response")?;
+    let r = string(pos, rv, &format!("limit {name}: response"))?;
+    if !responses.iter().any(|x| x.name == r) {
+        let known: Vec<&str> = responses.iter().map(|x| x.name.as_str()).collect();
+        return Err(pos.err(
+            rv.span(),
+            format!(
+                "limit {name} checks response {r:?}, which the design does not define (it has: {})",
+                known.join(", ")
+            ),
+        ));
+    }
+    let what = format!("limit {name}");
+    let from = number(pos, need("from")?, Quantity::Frequency, &what)?;
+    let tov = need("to")?;
+    let to = number(pos, tov, Quantity::Frequency, &what)?;
+    if !(from >= 0.0 && to >= from) {
+        return Err(pos.err(tov.span(), format!("limit {name}: the range must run upwards from 0 Hz or more, got {from} Hz to {to} Hz")));
+    }
+    let db = |key: &str| -> Result<Option<f64>, DesignError> {
+        match e.value(key) {
+            Some(s) => Ok(Some(number(pos, s, Quantity::Ratio, &what)?)),
+            None => Ok(None),
+        }
+    };
+    let (min_db, max_db) = (db("min_db")?, db("max_db")?);
+    match (min_db, max_db) {
+        (None, None) => {
+            return Err(pos.err(span, format!("limit {name} needs min_db, max_db or both")))
+        }
+        (Some(a), Some(b)) if a > b => {
+            return Err(pos.err(
+                span,
+                format!("limit {name}: min_db ({a}) is above max_db ({b})"),
+            ))
+        }
+        _ => {}
+    }
+    Ok(crate::metrics::Limit {
+        name: name.to_string(),
+        response: r,
+        from,
+        to,
+        min_db,
+        max_db,
+    })
+}
+
+fn read_response(
+    pos: &Positions<'_>,
+    net: &Network,
+    name: &str,
+    entry: Table<'_, '_>,
+) -> Result<ResponseSpec, DesignError> {
+    let entry_span = entry.span();
+    let e = Fields::of(entry, RESPONSE_KEYS, pos, unknown_key(RESPONSE_KEYS))?;
+    let node = |n: &str, span: Range<usize>| -> Result<NodeId, DesignError> {
+        net.node(n).ok_or_else(|| {
+            let mut known: Vec<&str> = net.node_names().iter().map(String::as_str).collect();
+            known.sort_unstable();
+            pos.err(
+                span,
+                format!(
+                    "response {name} reads node {n:?}, which no part connects to (nodes: {})",
+                    known.join(", ")
+                ),
+            )
+        })
+    };
+    let given = ["ratio", "impedance", "admittance"]
+        .iter()
+        .filter(|k| e.get(k).is_some())
+        .count();
+    if given != 1 {
+        return Err(pos.err(
+            entry_span,
+            format!("response {name} needs exactly one of ratio, impedance or admittance"),
+        ));
+    }
+    let kind = if let Some(r) = e.value("ratio") {
+        let rspan = r.span();
+        let probe = |p: Value<'_, '_>| -> Result<Probe, DesignError> {
+            match p {
+                Value::Scalar { .. } => match p.scalar() {
+                    Some(Scalar::Str(n)) => Ok(Probe::Voltage(node(&n, rspan.clone())?, NodeId::GROUND)),
+                    _ => Err(pos.err(rspan.clone(), "a read-out is a node \"out\", a pair [\"a\", \"b\"] or { current = \"R1\" }")),
+                },
+                Value::Array(_) => match strings(p) {
+                    Some(v) if v.len() == 2 => Ok(Probe::Voltage(
+                        node(&v[0], rspan.clone())?,
+                        node(&v[1], rspan.clone())?,
+                    )),
+                    _ => Err(pos.err(
+                        rspan.clone(),
+                        "a voltage between two nodes is written [\"a\", \"b\"]",
+                    )),
+                },
+                Value::Table(t) => {
+                    let f = Fields::of(t, &["current"], pos, |k| {
+                        format!("unknown key `{k}` in a read-out; a current is written {{ current = \"R1\" }}")
+                    })?;
+                    let Some(cv) = f.value("current") else {
+                        return Err(pos.err(rspan.clone(), "a current read-out is written { current = \"R1\" }"));
+                    };
+                    let current = string(pos, cv, &format!("response {name}: current"))?;
+                    let id = net.part_id(&current).ok_or_else(|| {
+                        pos.err(rspan.clone(), format!("response {name} reads the current of {current:?}, which is not a part of this design"))
+                    })?;
+                    if net.part(id).is_some_and(|p| !p.kind.has_sensable_current()) {
+                        return Err(pos.err(
+                            rspan.clone(),
+                            format!(
+                                "response {name}: part {current} has no current of its own to read"
+                            ),
+                        ));
+                    }
+                    Ok(Probe::Current(id))
+                }
+            }
+        };
+        let items: Vec<Value<'_, '_>> = match r {
+            Value::Array(a) => a.items().collect(),
+            _ => Vec::new(),
+        };
+        match items.as_slice() {
+            [num, den] => ResponseKind::Ratio {
+                numerator: probe(*num)?,
+                denominator: probe(*den)?,
+            },
+            _ => {
+                return Err(pos.err(
+                    rspan,
+                    "ratio takes two read-outs, [numerator, denominator]: a node \"out\", a pair [\"a\", \"b\"] or { current = \"R1\" }",
+                ))
+            }
+        }
+    } else {
+        let (v, admittance) = match (e.value("impedance"), e.value("admittance")) {
+            (Some(v), _) => (v, false),
+            (None, Some(v)) => (v, true),
+            _ => return Err(pos.err(entry_span, "missing impedance")),
+        };
+        let (a, b) = two_nodes(
+            pos,
+            v,
+            if admittance {
+                "admittance"
+            } else {
+                "impedance"
+            },
+        )?;
+        let (na, nb) = (node(&a, v.span())?, node(&b, v.span())?);
+        if na == nb {
+            return Err(pos.err(
+                v.span(),
+                format!("response {name}: the two nodes are the same"),
+            ));
+        }
+        if admittance {
+            ResponseKind::Admittance(na, nb)
+        } else {
+            ResponseKind::Impedance(na, nb)
+        }
+    };
+    if let ResponseKind::Ratio {
+        numerator,
+        denominator,
+    } = &kind
+    {
+        if numerator == denominator {
+            return Err(pos.err(
+                entry_span,
+                format!("response {name}: numerator and denominator are the same"),
+            ));
+        }
+        let has_source = net.parts().iter().any(|p| {
+            matches!(
+                p.kind,
+                PartKind::VoltageSource { .. } | PartKind::CurrentSource { .. }
+            )
+        });
+        if !has_source {
+            return Err(pos.err(entry_span, format!("response {name} is a ratio, which needs an independent source in [parts]; add one")));
+        }
+    }
+    let loop_gain = match e.value("loop_gain") {
+        Some(v) => boolean(pos, v, &format!("response {name}: loop_gain"))?,
+        None => false,
+    };
+    Ok(ResponseSpec {
+        name: name.to_string(),
+        kind,
+        loop_gain,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    const GOOD: &str = r#"
+title = "t"
+[sweep]
+from = "10 Hz"
+to = "1 MHz"
+per_decade = 10
+[parts]
+V1 = { voltage = "1 V", between = ["in", "gnd"] }
+R1 = { resistor = "1k", between = ["in", "out"], tolerance = "1%" }
+C1 = { capacitor = "100n", between = ["out", "gnd"] }
+[responses]
+gain = { ratio = ["out", "in"] }
+zin = { impedance = ["in", "gnd"] }
+"#;
+
+    #[test]
+    fn reads_a_good_design() {
+        let d = parse(GOOD).unwrap();
+        assert_eq!(d.network.parts().len(), 3);
+        assert_eq!(d.responses.len(), 2);
+        assert_eq!(d.sweep.grid().unwrap().len(), 51);
+        assert_eq!(d.network.parts()[1].tolerance, Some(0.01));
+    }
+
+    fn err(text: &str) -> String {
+        parse(text).unwrap_err().to_string()
+    }
+
+    #[test]
+    fn errors_point_at_line_and_column() {
+        let bad = GOOD.replace("\"1k\"", "\"1kk\"");
+        assert_eq!(
+            err(&bad),
+            "9:19: part R1: two prefixes in \"1kk\"; expected a resistance such as 4k7, 10 kΩ or 1R5"
+        );
+        let bad = GOOD.replace("[\"out\", \"in\"]", "[\"outt\", \"in\"]");
+        assert!(
+            err(&bad).starts_with("12:18: response gain reads node \"outt\""),
+            "{}",
+            err(&bad)
+        );
+    }
+}
