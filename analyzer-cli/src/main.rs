@@ -8,7 +8,8 @@ mod report;
 
 use analyzer_core::design::{self, Design};
 use analyzer_core::export::{CsvStream, Polar};
-use analyzer_core::metrics::{self, MetricOptions, Reference, Trace};
+use analyzer_core::metrics::{self, MetricOptions, Trace};
+use analyzer_core::poles;
 use analyzer_core::response::{Analysis, AnalysisError, ResponseUnit};
 use analyzer_core::solve::SolverKind;
 use analyzer_core::sweep::{self, Chunk, SweepOptions};
@@ -92,14 +93,17 @@ struct SweepArgs {
     /// Write phase wrapped to (−180°, 180°] instead of unwrapped along the sweep.
     #[arg(long)]
     wrapped: bool,
-    /// Level for the crossings, in dB relative to the reference (default −3.0103, the
-    /// half-power level). With `--reference absolute` the level is absolute.
+    /// Level for the crossings, in dB relative to the reference (default for a ratio
+    /// −3.0103, the half-power level; an impedance, admittance or loop gain gets crossings
+    /// only when a level is given). A response's own `level_db` in the design wins.
     #[arg(long, value_name = "DB", allow_hyphen_values = true)]
     level: Option<f64>,
-    /// What the level is measured from: `max` (passband maximum), `absolute` (0 dB) or a
-    /// frequency such as `1 kHz`.
-    #[arg(long, value_name = "max|absolute|FREQ", default_value = "max")]
-    reference: String,
+    /// What the level is measured from: `auto` (the passband of the network: DC gain of a
+    /// low-pass, high-frequency gain of a high-pass, peak of a band-pass), `dc`, `hf`,
+    /// `peak`, `absolute` (0 dB) or a frequency such as `1 kHz`. A response's own
+    /// `reference` in the design wins.
+    #[arg(long, value_name = "auto|dc|hf|peak|absolute|FREQ")]
+    reference: Option<String>,
     /// Write the figures as JSON to FILE, or `-` for stdout.
     #[arg(long, value_name = "FILE|-")]
     json: Option<String>,
@@ -198,16 +202,43 @@ fn load(path: &Path) -> Result<Design, Failure> {
     design::parse(&text).map_err(|e| Failure::input(format!("{shown}:{e}")))
 }
 
+fn print_warnings(d: &Design, path: &Path) {
+    for w in &d.warnings {
+        eprintln!("warning: {}:{w}", path.display());
+    }
+}
+
 fn run_check(path: &Path) -> Result<u8, Failure> {
     let d = load(path)?;
     let shown = path.display();
+    print_warnings(&d, path);
     let names: Vec<String> = d.responses.iter().map(|r| r.name.clone()).collect();
+    let grid = d.sweep.grid();
     let analysis = Analysis::new(d.network, d.responses)
         .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
-    // A sweep that includes 0 Hz must also pass the checks that apply there.
-    if d.sweep.grid().is_ok_and(|g| g.has_dc()) {
+    // Every check a sweep makes before it writes anything: the 0 Hz checks when the sweep
+    // includes 0 Hz, the solver's structural analysis, and the network solved at the
+    // sweep's first, middle and last frequencies (an op-amp without feedback, a singular
+    // or untrustworthy solution, a ratio with a zero denominator show there).
+    if grid.as_ref().is_ok_and(|g| g.has_dc()) {
         analysis
             .check_dc()
+            .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+    }
+    let ev = analysis
+        .evaluator()
+        .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+    let trial: Vec<f64> = match &grid {
+        Ok(g) => {
+            let mut v = vec![g.at(0), g.at(g.len() / 2), g.at(g.len().saturating_sub(1))];
+            v.dedup();
+            v
+        }
+        Err(_) => vec![1e3],
+    };
+    let mut ws = ev.workspace();
+    for f in trial {
+        ev.at(&mut ws, f, false)
             .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
     }
     let net = analysis.network();
@@ -219,11 +250,53 @@ fn run_check(path: &Path) -> Result<u8, Failure> {
         analysis.system().n
     );
     println!("  responses: {}", names.join(", "));
-    match d.sweep.grid() {
+    match &grid {
         Ok(g) => println!("  sweep: {}", g.describe()),
         Err(e) => println!("  sweep: {e}"),
     }
-    println!("  topology: no floating nodes, no loops of voltage sources");
+    println!(
+        "  topology: no floating nodes, no loops of voltage sources; solved at the sweep's ends and middle"
+    );
+    // The parts, as read (a long generated network shows its first and last ones).
+    const SHOWN: usize = 40;
+    let parts = net.parts();
+    let rows: Vec<[String; 5]> = parts
+        .iter()
+        .enumerate()
+        .filter(|(i, _)| parts.len() <= SHOWN || *i < SHOWN / 2 || *i >= parts.len() - SHOWN / 2)
+        .map(|(_, p)| {
+            [
+                p.name.clone(),
+                p.kind.word().to_string(),
+                p.value_text(net),
+                p.tolerance
+                    .map(|t| format!("±{}%", t * 100.0))
+                    .unwrap_or_default(),
+                p.nodes_text(net),
+            ]
+        })
+        .collect();
+    let width = |c: usize| rows.iter().map(|r| r[c].chars().count()).max().unwrap_or(0);
+    let w: Vec<usize> = (0..4).map(width).collect();
+    println!("  parts:");
+    for (k, r) in rows.iter().enumerate() {
+        if parts.len() > SHOWN && k == SHOWN / 2 {
+            println!("    … {} more …", parts.len() - SHOWN);
+        }
+        let pad =
+            |s: &str, n: usize| format!("{s}{}", " ".repeat(n.saturating_sub(s.chars().count())));
+        println!(
+            "    {}  {}  {}  {}  {}",
+            pad(&r[0], w[0]),
+            pad(&r[1], w[1]),
+            pad(&r[2], w[2]),
+            pad(&r[3], w[3]),
+            r[4]
+        );
+    }
+    if d.caution {
+        println!("\n{}", report::CAUTION);
+    }
     Ok(0)
 }
 
@@ -237,7 +310,22 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
             .num_threads(n)
             .build_global();
     }
+    if args.output.as_deref() == Some("-") && args.json.as_deref() == Some("-") {
+        return Err(Failure::input(
+            "-o - and --json - would both write to stdout; send one of them to a file (e.g. --json figures.json)",
+        ));
+    }
+    if let Some(o) = args.output.as_deref().filter(|o| *o != "-") {
+        if Path::new(o).is_file() {
+            return Err(Failure::input(format!(
+                "-o {o}: that is a file; -o takes a directory for RESPONSE.csv and RESPONSE.svg (made if missing), or - for CSV on stdout"
+            )));
+        }
+    }
     let mut d = load(&args.design)?;
+    if !args.quiet {
+        print_warnings(&d, &args.design);
+    }
     let shown = args.design.display().to_string();
     let freq = |s: &str, flag: &str| {
         parse_value(s, Quantity::Frequency).map_err(|e| Failure::input(format!("--{flag}: {e}")))
@@ -280,16 +368,13 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
         }
         d.responses.retain(|r| args.only.contains(&r.name));
     }
-    let reference = match args.reference.trim() {
-        "max" => Reference::PassbandMaximum,
-        "absolute" => Reference::Absolute,
-        f => Reference::AtFrequency(freq(f, "reference")?),
+    let cli_reference = match &args.reference {
+        Some(r) => Some(
+            design::parse_reference(r).map_err(|m| Failure::input(format!("--reference: {m}")))?,
+        ),
+        None => None,
     };
-    let metric_opts = MetricOptions {
-        level_db: args.level.unwrap_or(metrics::HALF_POWER_DB),
-        reference,
-    };
-    if !metric_opts.level_db.is_finite() {
+    if args.level.is_some_and(|l| !l.is_finite()) {
         return Err(Failure::input("--level must be a finite number of dB"));
     }
     let solver = match args.solver {
@@ -402,7 +487,22 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
     let solve_time = started.elapsed();
 
     let figures = (0..nr)
-        .map(|i| metrics::figures(&ev, &grid, &traces[i], i, &metric_opts))
+        .map(|i| {
+            let spec = &specs[i];
+            let opts = MetricOptions {
+                level_db: spec.level_db.or(args.level),
+                reference: spec.reference.or(cli_reference).unwrap_or_default(),
+            };
+            // Poles and zeros scaled to the sweep's geometric centre.
+            let (lo, hi) = grid.bounds();
+            let lo = if lo > 0.0 { lo } else { hi * 1e-6 };
+            let omega_s = 2.0 * std::f64::consts::PI * (lo * hi).sqrt();
+            let (pz, note) = match poles::pole_zero(&analysis, i, Some(omega_s)) {
+                Ok(p) => (Some(p), None),
+                Err(e) => (None, Some(e.to_string())),
+            };
+            metrics::figures(&ev, &grid, &traces[i], i, &opts, pz.as_ref(), note)
+        })
         .collect::<Result<Vec<_>, _>>()
         .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
     // Limits on responses left out by --only are not checked.

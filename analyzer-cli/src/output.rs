@@ -179,15 +179,21 @@ pub fn svg(
     }
     let f = figures;
     let mut markers = Vec::new();
-    for (label, freq) in [("lower", f.lower_cutoff_hz), ("upper", f.upper_cutoff_hz)] {
-        if let Some(freq) = freq {
-            markers.push(Marker {
-                freq,
-                panel: 0,
-                value: f.level_db,
-                label: format!("{label} {}", short(freq)),
-            });
-        }
+    // Every crossing the table lists, at the level it crosses.
+    for c in &f.crossings {
+        let what = if Some(c.freq_hz) == f.lower_cutoff_hz {
+            "lower cut-off "
+        } else if Some(c.freq_hz) == f.upper_cutoff_hz {
+            "upper cut-off "
+        } else {
+            ""
+        };
+        markers.push(Marker {
+            freq: c.freq_hz,
+            panel: 0,
+            value: c.level_db,
+            label: format!("{what}{}", short(c.freq_hz)),
+        });
     }
     for p in &f.peaks {
         markers.push(Marker {

@@ -54,17 +54,56 @@ pub fn table(
         } else {
             f.unit.to_string()
         };
-        let _ = writeln!(s, "\n{} ({unit})", f.response);
+        let _ = writeln!(s, "\n{} ({unit}, {})", f.response, f.class);
         let mut row = |label: &str, value: String| {
             let _ = writeln!(s, "  {label:<18}{value}");
         };
-        match f.reference_hz {
-            Some(r) => row("reference", format!("{} at {}", db(f.reference_db), hz(r))),
-            None => row("reference", "0 dB (absolute)".into()),
+        let in_unit = |x: f64| format_eng(x, 5, f.unit);
+        match (&f.reference, f.level_db) {
+            (Some(r), Some(level)) => {
+                let at = match (r.kind, r.hz) {
+                    ("dc", _) => "the DC gain".to_string(),
+                    ("hf", _) => "the high-frequency gain".to_string(),
+                    ("absolute", _) => "absolute".to_string(),
+                    (_, Some(h)) => format!("at {}", hz(h)),
+                    _ => String::new(),
+                };
+                row("reference", format!("{} ({at}; {})", db(r.db), r.why));
+                if let Some(u) = &f.upper_reference {
+                    row("upper reference", format!("{} ({})", db(u.db), u.why));
+                }
+                row(
+                    "level",
+                    format!(
+                        "{} below the reference",
+                        db(level - r.db).trim_start_matches('-')
+                    ),
+                );
+                if f.crossings.is_empty() {
+                    row("crossings", "none in the sweep".into());
+                }
+            }
+            _ => {
+                if f.unit.is_empty() && f.margins.is_none() {
+                    row(
+                        "reference",
+                        "none: the response has no passband (give --reference to measure crossings)".into(),
+                    );
+                }
+            }
         }
-        row("level", db(f.level_db));
-        if f.crossings.is_empty() {
-            row("crossings", "none in the sweep".into());
+        let level = |d: f64| {
+            if f.unit.is_empty() {
+                db(d)
+            } else {
+                in_unit(10f64.powf(d / 20.0))
+            }
+        };
+        if let Some(d) = f.dc_db {
+            row("at 0 Hz", level(d));
+        }
+        if let Some(h) = f.hf_db {
+            row("as f → ∞", level(h));
         }
         if let Some(l) = f.lower_cutoff_hz {
             row("lower cut-off", hz(l));
@@ -89,46 +128,75 @@ pub fn table(
         if !others.is_empty() {
             row("other crossings", others.join(", "));
         }
+        let magnitude = |x: &analyzer_core::metrics::Extremum| {
+            if f.unit.is_empty() {
+                db(x.magnitude_db)
+            } else {
+                in_unit(x.magnitude)
+            }
+        };
         for p in &f.peaks {
             let q = p.q.map(|q| format!(" · Q {q:.4}")).unwrap_or_default();
-            row(
-                "peak",
-                format!("{} at {}{q}", db(p.magnitude_db), hz(p.freq_hz)),
-            );
+            let label = if f.unit.is_empty() { "peak" } else { "maximum" };
+            row(label, format!("{} at {}{q}", magnitude(p), hz(p.freq_hz)));
         }
         for n in &f.notches {
-            row(
-                "notch",
-                format!("{} at {}", db(n.magnitude_db), hz(n.freq_hz)),
-            );
+            let label = if f.unit.is_empty() {
+                "notch"
+            } else {
+                "minimum"
+            };
+            row(label, format!("{} at {}", magnitude(n), hz(n.freq_hz)));
         }
         for r in &f.resonances {
-            let qb = r
-                .q_bandwidth
-                .map(|q| format!(", Q {q:.4} from bandwidth"))
-                .unwrap_or_default();
-            let (of, what) = if f.unit == "S" {
-                ("Y", " (admittance)")
-            } else {
-                ("Z", "")
-            };
+            let of = if f.unit == "S" { "Y" } else { "Z" };
             row(
                 "resonance",
                 format!(
-                    "{}{what} at {}: |{of}| {} · Q {:.4} from phase slope{qb}",
+                    "{} at {}: |{of}| {} · Q {:.4} ({})",
                     r.kind,
                     hz(r.freq_hz),
-                    format_eng(r.magnitude, 5, f.unit),
-                    r.q_phase_slope
+                    in_unit(r.magnitude),
+                    r.q,
+                    r.q_definition
                 ),
             );
         }
-        if let Some(d) = f.group_delay_s {
-            let at = f
-                .reference_hz
-                .map(hz)
-                .unwrap_or_else(|| "the first point".into());
-            row("group delay", format!("{} at {at}", format_eng(d, 5, "s")));
+        for p in &f.poles.rows {
+            let flag = match (p.what, p.right_half_plane) {
+                ("pole", true) => " (unstable: right half-plane)",
+                ("zero", true) => " (right half-plane)",
+                _ => "",
+            };
+            let text = if p.origin {
+                "at the origin (0 Hz)".to_string()
+            } else if p.pair {
+                match p.q {
+                    Some(q) if q.is_finite() => format!("pair f0 {} · Q {q:.4}{flag}", hz(p.f0_hz)),
+                    _ => format!("pair f0 {} on the jω axis", hz(p.f0_hz)),
+                }
+            } else {
+                format!("real, corner {}{flag}", hz(p.f0_hz))
+            };
+            row(p.what, text);
+        }
+        if f.poles.cancelled > 0 {
+            row(
+                "cancelled",
+                format!(
+                    "{} pole–zero pair(s) the response cannot see",
+                    f.poles.cancelled
+                ),
+            );
+        }
+        if let Some(note) = &f.poles.note {
+            row("poles", note.clone());
+        }
+        if let (Some(d), Some(at)) = (f.group_delay_s, f.group_delay_hz) {
+            row(
+                "group delay",
+                format!("{} at {}", format_eng(d, 5, "s"), hz(at)),
+            );
         }
         if let Some(m) = &f.margins {
             match (m.gain_crossover_hz, m.phase_margin_deg) {

@@ -12,6 +12,8 @@ const DESIGNS: &[(&str, &str)] = &[
     ("value_nan", ":8:19: part R1: no digits in \"NaN\"; expected a resistance such as 4k7, 10 kΩ or 1R5"),
     ("value_dash", ":8:19: part R1: no digits in \"-\"; expected a resistance such as 4k7, 10 kΩ or 1R5"),
     ("value_letter_code_prefix", ":8:19: part R1: a prefix after the letter code in \"4k7k\"; expected a resistance such as 4k7, 10 kΩ or 1R5"),
+    ("value_meg", ":8:19: part R1: \"meg\" is not a prefix here: write M for mega (1M) or m for milli (1m) in \"1meg\"; expected a resistance such as 4k7, 10 kΩ or 1R5"),
+    ("value_unit_after_prefix", ":8:19: part R1: unit \"F\" does not fit a resistance (use Ω, ohm or R or no unit) in \"4.7 kF\"; expected a resistance such as 4k7, 10 kΩ or 1R5"),
     ("value_wrong_unit", ":8:19: part R1: unit \"Hz\" does not fit a resistance (use Ω, ohm or R or no unit) in \"1 kHz\"; expected a resistance such as 4k7, 10 kΩ or 1R5"),
     ("value_negative_resistance", ":8:19: R1: resistance must be positive and finite, got -1000"),
     ("value_zero_capacitance", ":9:20: C1: capacitance must be positive and finite, got 0"),
@@ -123,7 +125,10 @@ fn bad_arguments_give_their_message() {
         (&["sweep", GOOD, "--threads", "0", "-o", &out_s], "error: --threads must be at least 1\n"),
         (&["sweep", GOOD, "--points", "1", "-o", &out_s], "error: ../../sweeps/soil-probe-antialias.toml: sweep: the sweep needs at least 2 points, got 1\n"),
         (&["sweep", GOOD, "--per-decade", "0.5", "-o", &out_s], "error: ../../sweeps/soil-probe-antialias.toml: sweep: the sweep needs at least 1 point per decade, got 0.5\n"),
-        (&["sweep", GOOD, "--reference", "loud", "-o", &out_s], "error: --reference: no digits in \"loud\"; expected a frequency such as 1 kHz, 2.5MHz or 50\n"),
+        (&["sweep", GOOD, "--reference", "loud", "-o", &out_s], "error: --reference: reference \"loud\" is not one of auto, dc, hf, peak, absolute or a frequency such as 1 kHz\n"),
+        (&["sweep", GOOD, "--reference", "1 kΩ", "-o", &out_s], "error: --reference: unit \"Ω\" does not fit a frequency (use Hz or no unit) in \"1 kΩ\"; expected a frequency such as 1 kHz, 2.5MHz or 50\n"),
+        (&["sweep", GOOD, "-o", "-", "--json", "-"], "error: -o - and --json - would both write to stdout; send one of them to a file (e.g. --json figures.json)\n"),
+        (&["sweep", GOOD, "-o", "bad/value_nan.toml"], "error: -o bad/value_nan.toml: that is a file; -o takes a directory for RESPONSE.csv and RESPONSE.svg (made if missing), or - for CSV on stdout\n"),
         (&["sweep", "bad/does-not-exist.toml", "-o", &out_s], "error: bad/does-not-exist.toml: No such file or directory (os error 2)\n"),
     ];
     for (args, expected) in cases {

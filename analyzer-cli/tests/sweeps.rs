@@ -116,23 +116,24 @@ load.magnitude_db,load.phase_deg,load.real_ohm,load.imag_ohm"
 #[test]
 fn json_figures_for_scripts() {
     let path = root().join("sweeps/vibration-bandpass.toml");
+    let tmp = tempfile::tempdir().unwrap();
     let out = Command::cargo_bin("analyzer")
         .unwrap()
         .args([
             "sweep",
             path.to_str().unwrap(),
-            "-o",
-            "-",
             "--json",
             "-",
             "--only",
             "gain",
+            "-o",
         ])
+        .arg(tmp.path())
         .assert()
         .success();
+    // The JSON alone on stdout (the table goes to stderr).
     let text = String::from_utf8_lossy(&out.get_output().stdout).to_string();
-    let start = text.find('{').unwrap();
-    let v: serde_json::Value = serde_json::from_str(&text[start..]).unwrap();
+    let v: serde_json::Value = serde_json::from_str(&text).unwrap();
     let g = &v["responses"][0];
     assert_eq!(g["response"], "gain");
     let f0 = g["peaks"][0]["freq_hz"].as_f64().unwrap();
@@ -341,4 +342,93 @@ fn every_solver_path_gives_the_same_csv() {
             }
         }
     }
+}
+
+/// Values far outside the usual range of their kind are warned about, with the likely slip,
+/// and used as written; a unit after a prefix reads with or without a space.
+#[test]
+fn unusual_values_are_warned_about_and_kept() {
+    let tmp = tempfile::tempdir().unwrap();
+    let design = tmp.path().join("slips.toml");
+    std::fs::write(
+        &design,
+        r#"title = "slips"
+[sweep]
+from = "10 Hz"
+to = "100 kHz"
+per_decade = 10
+[parts]
+V1 = { voltage = "1 V", between = ["in", "gnd"] }
+R1 = { resistor = "1m", between = ["in", "out"] }
+C1 = { capacitor = "100", between = ["out", "gnd"] }
+R2 = { resistor = "1k ohm", between = ["out", "gnd"] }
+C2 = { capacitor = "100n F", between = ["out", "gnd"] }
+[responses]
+gain = { ratio = ["out", "in"] }
+"#,
+    )
+    .unwrap();
+    let out = Command::cargo_bin("analyzer")
+        .unwrap()
+        .args(["sweep", design.to_str().unwrap(), "-o"])
+        .arg(tmp.path().join("o"))
+        .assert()
+        .success();
+    let stderr = String::from_utf8_lossy(&out.get_output().stderr).to_string();
+    let d = design.display();
+    assert_eq!(
+        stderr,
+        format!(
+            "warning: {d}:8:19: part R1: 1 mΩ is outside the usual 10 mΩ … 1 GΩ of a resistor; it is used as written (m is milli; for mega write M)\n\
+warning: {d}:9:20: part C1: 100 F is outside the usual 100 fF … 1 F of a capacitor; it is used as written (is a prefix missing?)\n"
+        )
+    );
+    // -q keeps stderr for errors.
+    let out = Command::cargo_bin("analyzer")
+        .unwrap()
+        .args(["sweep", design.to_str().unwrap(), "-q", "-o"])
+        .arg(tmp.path().join("o"))
+        .assert()
+        .success();
+    assert!(out.get_output().stderr.is_empty());
+}
+
+/// `check` runs what a sweep checks before writing (a trial solve finds an op-amp without
+/// feedback), lists the parts as read, and shows the safety caution where it applies.
+#[test]
+fn check_lists_the_parts_and_finds_what_a_sweep_would() {
+    let bad =
+        Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/bad/topology_opamp_output_free.toml");
+    let out = Command::cargo_bin("analyzer")
+        .unwrap()
+        .args(["check", bad.to_str().unwrap()])
+        .assert()
+        .code(2);
+    let stderr = String::from_utf8_lossy(&out.get_output().stderr).to_string();
+    assert!(stderr.ends_with(": the network is singular at 10.000 Hz: no solution determines the output of op-amp U1; give the op-amp feedback from its output to an input\n"), "{stderr}");
+    let mains = root().join("sweeps/mains-line-filter.toml");
+    let out = Command::cargo_bin("analyzer")
+        .unwrap()
+        .args(["check", mains.to_str().unwrap()])
+        .assert()
+        .success();
+    let text = String::from_utf8_lossy(&out.get_output().stdout).to_string();
+    for line in [
+        "    Cx1             capacitor       100.00 nF             L1 – N1",
+        "    choke_coupling  coupling        k 0.995 (Lc1, Lc2)",
+        "caution: this design names a mains-connected, high-voltage or medical use.",
+    ] {
+        assert!(text.contains(line), "{line}\n{text}");
+    }
+}
+
+/// The README's design block is the example file the README's command runs.
+#[test]
+fn the_readme_shows_the_real_example() {
+    let readme = std::fs::read_to_string(root().join("README.md")).unwrap();
+    let file = std::fs::read_to_string(root().join("sweeps/soil-probe-antialias.toml")).unwrap();
+    assert!(
+        readme.contains(&format!("```toml\n{file}```")),
+        "README.md's design block differs from sweeps/soil-probe-antialias.toml"
+    );
 }

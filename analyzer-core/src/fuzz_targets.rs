@@ -74,7 +74,16 @@ pub fn design(data: &[u8]) {
     for i in 0..analysis.responses().len() {
         let delays = s.delays.as_ref().map(|d| d[i].as_slice());
         let trace = metrics::Trace::from_values(&s.values[i], delays);
-        let _ = metrics::figures(&ev, &grid, &trace, i, &MetricOptions::default());
+        let pz = crate::poles::pole_zero(&analysis, i, None).ok();
+        let _ = metrics::figures(
+            &ev,
+            &grid,
+            &trace,
+            i,
+            &MetricOptions::default(),
+            pz.as_ref(),
+            None,
+        );
     }
 }
 

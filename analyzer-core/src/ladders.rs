@@ -33,14 +33,13 @@ pub fn rlc_ladder(
 pub fn ladder_gain(net: &Network, sections: usize) -> Option<ResponseSpec> {
     let out = net.node(&format!("n{sections}"))?;
     let src = net.node("src")?;
-    Some(ResponseSpec {
-        name: "gain".into(),
-        kind: ResponseKind::Ratio {
+    Some(ResponseSpec::new(
+        "gain",
+        ResponseKind::Ratio {
             numerator: Probe::Voltage(out, NodeId::GROUND),
             denominator: Probe::Voltage(src, NodeId::GROUND),
         },
-        loop_gain: false,
-    })
+    ))
 }
 
 /// A doubly terminated Butterworth low-pass ladder of order `n` (series inductor first),
@@ -72,14 +71,13 @@ pub fn butterworth_ladder(
     }
     let out = format!("n{node}");
     b.resistor("RL", &out, "gnd", r0)?;
-    let spec = ResponseSpec {
-        name: "gain".into(),
-        kind: ResponseKind::Ratio {
+    let spec = ResponseSpec::new(
+        "gain",
+        ResponseKind::Ratio {
             numerator: Probe::Voltage(b.node(&out)?, NodeId::GROUND),
             denominator: Probe::Voltage(b.node("src")?, NodeId::GROUND),
         },
-        loop_gain: false,
-    };
+    );
     let net = b.build()?;
     Ok((net, spec))
 }

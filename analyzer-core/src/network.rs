@@ -236,6 +236,86 @@ pub struct Part {
     pub tolerance: Option<f64>,
 }
 
+impl Part {
+    /// The part's value as a table shows it, in engineering notation with its unit:
+    /// `4.7000 kΩ`, `1 V ∠30°`, `gain 10`, `A0 200k, GBW 10 MHz`, `k 0.98 (L1, L2)`.
+    pub fn value_text(&self, net: &Network) -> String {
+        let e = |v: f64, unit: &str| crate::units::format_eng(v, 5, unit);
+        let name = |p: PartId| net.part(p).map_or("?", |x| x.name.as_str()).to_string();
+        match self.kind {
+            PartKind::Resistor { ohms, .. } => e(ohms, "Ω"),
+            PartKind::Capacitor { farads, .. } => e(farads, "F"),
+            PartKind::Inductor { henries, .. } => e(henries, "H"),
+            PartKind::Coupling { first, second, k } => {
+                format!("k {k} ({}, {})", name(first), name(second))
+            }
+            PartKind::VoltageSource { phasor, .. } => polar(phasor, "V"),
+            PartKind::CurrentSource { phasor, .. } => polar(phasor, "A"),
+            PartKind::Vcvs { gain, .. } => format!("gain {}", e(gain, "")),
+            PartKind::Vccs { gm, .. } => e(gm, "S"),
+            PartKind::Ccvs { control, rm, .. } => format!("{} × I({})", e(rm, "Ω"), name(control)),
+            PartKind::Cccs { control, gain, .. } => {
+                format!("{} × I({})", e(gain, ""), name(control))
+            }
+            PartKind::IdealOpamp { .. } => "ideal".to_string(),
+            PartKind::SinglePoleOpamp { dc_gain, gbw, .. } => {
+                format!("A0 {}, GBW {}", e(dc_gain, ""), e(gbw, "Hz"))
+            }
+        }
+    }
+
+    /// The nodes the part connects, as a table shows them: `a → b` for two-terminal parts
+    /// (current counted from the first to the second), with the sensed nodes of a controlled
+    /// source and the pins of an op-amp named.
+    pub fn nodes_text(&self, net: &Network) -> String {
+        let n = |id: NodeId| net.node_name(id).to_string();
+        match self.kind {
+            PartKind::Resistor { a, b, .. }
+            | PartKind::Capacitor { a, b, .. }
+            | PartKind::Inductor { a, b, .. } => format!("{} – {}", n(a), n(b)),
+            PartKind::Coupling { .. } => String::new(),
+            PartKind::VoltageSource { plus, minus, .. } => format!("+{} −{}", n(plus), n(minus)),
+            PartKind::CurrentSource { from, to, .. } => format!("{} → {}", n(from), n(to)),
+            PartKind::Vcvs {
+                plus,
+                minus,
+                cp,
+                cn,
+                ..
+            } => format!("+{} −{}, senses {} – {}", n(plus), n(minus), n(cp), n(cn)),
+            PartKind::Vccs {
+                from, to, cp, cn, ..
+            } => format!("{} → {}, senses {} – {}", n(from), n(to), n(cp), n(cn)),
+            PartKind::Ccvs { plus, minus, .. } => format!("+{} −{}", n(plus), n(minus)),
+            PartKind::Cccs { from, to, .. } => format!("{} → {}", n(from), n(to)),
+            PartKind::IdealOpamp {
+                noninverting,
+                inverting,
+                output,
+            }
+            | PartKind::SinglePoleOpamp {
+                noninverting,
+                inverting,
+                output,
+                ..
+            } => format!("+{} −{} out {}", n(noninverting), n(inverting), n(output)),
+        }
+    }
+}
+
+fn polar(z: Complex64, unit: &str) -> String {
+    let m = crate::units::format_eng(z.norm(), 5, unit);
+    let deg = z.arg().to_degrees();
+    if deg == 0.0 {
+        m
+    } else {
+        format!(
+            "{m} ∠{}°",
+            crate::units::format_eng(deg, 4, "").replace(' ', "")
+        )
+    }
+}
+
 /// A checked network: every node reference valid, every value in range, names unique.
 #[derive(Clone, Debug, PartialEq)]
 pub struct Network {

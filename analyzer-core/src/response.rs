@@ -52,7 +52,7 @@ pub enum ResponseKind {
 }
 
 /// A named response.
-#[derive(Clone, Debug, PartialEq, Eq)]
+#[derive(Clone, Debug, PartialEq)]
 pub struct ResponseSpec {
     /// Name used for files and tables.
     pub name: String,
@@ -60,6 +60,24 @@ pub struct ResponseSpec {
     pub kind: ResponseKind,
     /// Whether it is a loop gain (margins are then reported).
     pub loop_gain: bool,
+    /// Level of the crossings for this response (dB, relative to its reference), where the
+    /// design sets one.
+    pub level_db: Option<f64>,
+    /// What this response's level is measured from, where the design sets it.
+    pub reference: Option<crate::metrics::Reference>,
+}
+
+impl ResponseSpec {
+    /// A response of this name and kind, not a loop gain, with the figures' defaults.
+    pub fn new(name: impl Into<String>, kind: ResponseKind) -> Self {
+        ResponseSpec {
+            name: name.into(),
+            kind,
+            loop_gain: false,
+            level_db: None,
+            reference: None,
+        }
+    }
 }
 
 /// The unit of a response's value.
@@ -182,6 +200,22 @@ struct Resolved {
     numerator: Readout,
     denominator: Option<Readout>,
     invert: bool,
+}
+
+/// How one response is read out of the system (see [`Analysis::readout`]):
+/// `value = numerator(x) / denominator(x)` with `(G + jωC)·x = rhs`, inverted when `invert`.
+#[derive(Clone, Copy, Debug)]
+pub struct ResponseReadout<'a> {
+    /// Right-hand side of the excitation.
+    pub rhs: &'a [Complex64],
+    /// The read-out on top.
+    pub numerator: &'a Readout,
+    /// The read-out below (None: 1).
+    pub denominator: Option<&'a Readout>,
+    /// Whether the ratio is inverted (an admittance from an impedance excitation).
+    pub invert: bool,
+    /// Whether the excitation is the design's own sources (read-out constants apply).
+    pub design: bool,
 }
 
 /// A network with its assembled system and resolved responses, ready to be evaluated.
@@ -336,6 +370,21 @@ impl Analysis {
     /// The responses, in order.
     pub fn responses(&self) -> &[ResponseSpec] {
         &self.specs
+    }
+
+    /// How response `index` is read: the right-hand side of its excitation, its numerator
+    /// and denominator read-outs (no denominator: the numerator alone, under a 1 A test
+    /// current), whether the value is inverted (an admittance), and whether the excitation
+    /// is the design's own sources (so read-out constants apply).
+    pub fn readout(&self, index: usize) -> Option<ResponseReadout<'_>> {
+        let r = self.resolved.get(index)?;
+        Some(ResponseReadout {
+            rhs: self.rhs.get(r.excitation)?,
+            numerator: &r.numerator,
+            denominator: r.denominator.as_ref(),
+            invert: r.invert,
+            design: self.excitations.get(r.excitation) == Some(&Excitation::Design),
+        })
     }
 
     /// Prepares the solver (the sparse path does its symbolic analysis here).
@@ -614,19 +663,14 @@ mod tests {
         let first = net.node("n1").unwrap();
         let last = net.node(&format!("n{n}")).unwrap();
         let specs = vec![
-            ResponseSpec {
-                name: "zin".into(),
-                kind: ResponseKind::Impedance(first, NodeId::GROUND),
-                loop_gain: false,
-            },
-            ResponseSpec {
-                name: "transfer".into(),
-                kind: ResponseKind::Ratio {
+            ResponseSpec::new("zin", ResponseKind::Impedance(first, NodeId::GROUND)),
+            ResponseSpec::new(
+                "transfer",
+                ResponseKind::Ratio {
                     numerator: Probe::Voltage(last, NodeId::GROUND),
                     denominator: Probe::Current(net.part_id("Rg1").unwrap()),
                 },
-                loop_gain: false,
-            },
+            ),
         ];
         Analysis::new(net, specs).unwrap()
     }
@@ -664,14 +708,13 @@ mod tests {
         b.capacitor("C2", "b", "gnd", 1e-6).unwrap();
         let net = b.build().unwrap();
         let (nb, na) = (net.node("b").unwrap(), net.node("a").unwrap());
-        let spec = ResponseSpec {
-            name: "gain".into(),
-            kind: ResponseKind::Ratio {
+        let spec = ResponseSpec::new(
+            "gain",
+            ResponseKind::Ratio {
                 numerator: Probe::Voltage(nb, NodeId::GROUND),
                 denominator: Probe::Voltage(na, NodeId::GROUND),
             },
-            loop_gain: false,
-        };
+        );
         let a = Analysis::new(net, vec![spec]).unwrap();
         let ev = a.evaluator().unwrap();
         let mut ws = ev.workspace();

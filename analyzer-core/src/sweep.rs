@@ -572,14 +572,13 @@ mod tests {
         b.capacitor("C1", "out", "gnd", farads).unwrap();
         let net = b.build().unwrap();
         let (i, o) = (net.node("in").unwrap(), net.node("out").unwrap());
-        let spec = ResponseSpec {
-            name: "gain".into(),
-            kind: ResponseKind::Ratio {
+        let spec = ResponseSpec::new(
+            "gain",
+            ResponseKind::Ratio {
                 numerator: Probe::Voltage(o, NodeId::GROUND),
                 denominator: Probe::Voltage(i, NodeId::GROUND),
             },
-            loop_gain: false,
-        };
+        );
         Analysis::new(net, vec![spec]).unwrap()
     }
 

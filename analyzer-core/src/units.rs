@@ -374,6 +374,21 @@ pub fn format_eng(value: f64, digits: usize, unit: &str) -> String {
     format!("{mantissa:.decimals$}{sep}{prefix}{unit}")
 }
 
+/// As [`format_eng`] with up to `digits` significant digits and no trailing zeros:
+/// `format_short(0.01, 4, "Ω")` → `"10 mΩ"`, `format_short(4700.0, 4, "Ω")` → `"4.7 kΩ"`.
+pub fn format_short(value: f64, digits: usize, unit: &str) -> String {
+    let s = format_eng(value, digits, unit);
+    let (num, rest) = match s.find(' ') {
+        Some(i) => (&s[..i], &s[i..]),
+        None => (s.as_str(), ""),
+    };
+    if num.contains('.') && !num.contains('e') {
+        let t = num.trim_end_matches('0').trim_end_matches('.');
+        return format!("{t}{rest}");
+    }
+    s
+}
+
 /// A value with its unit that displays in engineering notation (5 significant digits).
 #[derive(Clone, Copy, Debug)]
 pub struct Eng(pub f64, pub &'static str);
@@ -529,5 +544,9 @@ mod tests {
         assert_eq!(format_eng(0.0, 3, "V"), "0 V");
         assert_eq!(format_eng(1e20, 3, "Hz"), "1.00e20 Hz");
         assert_eq!(format_eng(7.0711, 3, ""), "7.07");
+        assert_eq!(format_short(0.01, 4, "Ω"), "10 mΩ");
+        assert_eq!(format_short(4700.0, 4, "Ω"), "4.7 kΩ");
+        assert_eq!(format_short(-3.0, 4, "dB"), "-3 dB");
+        assert_eq!(format_short(123456.0, 4, "Hz"), "123.5 kHz");
     }
 }

@@ -41,6 +41,27 @@ pub fn run(a: &Analysis, grid: &Grid, derivatives: bool) -> Sweep {
     .expect("sweep")
 }
 
+/// Every figure of response `i` swept over `grid`, with its poles and zeros computed as the
+/// CLI does (scaled to the sweep's geometric centre).
+pub fn figures(
+    a: &Analysis,
+    grid: &Grid,
+    i: usize,
+    opts: &analyzer_core::metrics::MetricOptions,
+) -> analyzer_core::metrics::Figures {
+    let ev = a.evaluator().expect("evaluator");
+    let s = sweep::run(&ev, grid, &SweepOptions::default()).expect("sweep");
+    let trace = analyzer_core::metrics::Trace::from_values(&s.values[i], None);
+    let (lo, hi) = grid.bounds();
+    let lo = if lo > 0.0 { lo } else { hi * 1e-6 };
+    let w = 2.0 * std::f64::consts::PI * (lo * hi).sqrt();
+    let (pz, note) = match analyzer_core::poles::pole_zero(a, i, Some(w)) {
+        Ok(p) => (Some(p), None),
+        Err(e) => (None, Some(e.to_string())),
+    };
+    analyzer_core::metrics::figures(&ev, grid, &trace, i, opts, pz.as_ref(), note).expect("figures")
+}
+
 /// Relative difference |a − b| / |b|.
 pub fn rel(a: f64, b: f64) -> f64 {
     (a - b).abs() / b.abs()

@@ -120,14 +120,13 @@ fn solution(a: &Analysis, f: f64) -> Vec<Complex64> {
 }
 
 fn any_ratio(net: &Network) -> Vec<ResponseSpec> {
-    vec![ResponseSpec {
-        name: "v1".into(),
-        kind: ResponseKind::Ratio {
+    vec![ResponseSpec::new(
+        "v1",
+        ResponseKind::Ratio {
             numerator: readout_node(net, 1),
             denominator: Probe::Current(net.part_id("Itest").unwrap()),
         },
-        loop_gain: false,
-    }]
+    )]
 }
 
 proptest! {
@@ -189,14 +188,10 @@ proptest! {
         prop_assume!(ia != ib);
         let z = |from: usize, to: usize| -> Option<Complex64> {
             let net = build(nodes, &tree, &els, false, Some(from))?;
-            let spec = ResponseSpec {
-                name: "z".into(),
-                kind: ResponseKind::Ratio {
+            let spec = ResponseSpec::new("z", ResponseKind::Ratio {
                     numerator: readout_node(&net, to),
                     denominator: Probe::Current(net.part_id("Itest")?),
-                },
-                loop_gain: false,
-            };
+                });
             let a = Analysis::new(net, vec![spec]).ok()?;
             Some(reference_suite::value(&a, 0, f))
         };
@@ -221,7 +216,7 @@ proptest! {
         let f = 10f64.powf(f);
         let Some(net) = build(nodes, &tree, &els, false, None) else { return Ok(()) };
         let p = net.node(&node(1 + port % (nodes - 1))).unwrap();
-        let spec = ResponseSpec { name: "z".into(), kind: ResponseKind::Impedance(p, NodeId::GROUND), loop_gain: false };
+        let spec = ResponseSpec::new("z", ResponseKind::Impedance(p, NodeId::GROUND));
         let a = Analysis::new(net, vec![spec]).unwrap();
         let z = reference_suite::value(&a, 0, f);
         prop_assert!(z.re >= -1e-12 * z.norm(), "Re Z = {} (|Z| = {})", z.re, z.norm());

@@ -136,6 +136,64 @@ pub struct Design {
     /// Whether the design mentions a mains, high-voltage or medical use in its title or
     /// `caution` key, so reports carry the safety caution.
     pub caution: bool,
+    /// Things that are legal but probably not meant (values far outside the usual range of
+    /// their kind), in file order. Nothing is changed because of them.
+    pub warnings: Vec<DesignWarning>,
+}
+
+/// A warning about a design file, with its position; the design is read as written.
+#[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
+#[error("{line}:{column}: {message}")]
+pub struct DesignWarning {
+    /// 1-based line.
+    pub line: usize,
+    /// 1-based column, in characters.
+    pub column: usize,
+    /// What looks wrong.
+    pub message: String,
+}
+
+/// The usual range of each passive kind's value in the networks this tool serves (signal
+/// filters, crossovers, matching and EMI networks, sensor front ends): resistors 10 mΩ to
+/// 1 GΩ, capacitors 0.1 pF to 1 F, inductors 1 nH to 100 H. A value outside is nearly
+/// always a slip (m for M, a lost prefix); the reader warns and uses it as written.
+pub const USUAL_RANGES: [(&str, Quantity, f64, f64); 3] = [
+    ("resistor", Quantity::Resistance, 10e-3, 1e9),
+    ("capacitor", Quantity::Capacitance, 0.1e-12, 1.0),
+    ("inductor", Quantity::Inductance, 1e-9, 100.0),
+];
+
+/// A warning for a passive value outside [`USUAL_RANGES`], with a hint at the likely slip.
+fn unusual_value(kind: &str, name: &str, value: f64, text: Option<&str>) -> Option<String> {
+    let &(_, q, lo, hi) = USUAL_RANGES.iter().find(|r| r.0 == kind)?;
+    if (lo..=hi).contains(&value) {
+        return None;
+    }
+    let unit = match q {
+        Quantity::Resistance => "Ω",
+        Quantity::Capacitance => "F",
+        _ => "H",
+    };
+    let eng = |v: f64| crate::units::format_short(v, 4, unit);
+    let text = text.unwrap_or("");
+    let hint = if text.contains('m') && (lo..=hi).contains(&(value * 1e9)) {
+        " (m is milli; for mega write M)"
+    } else if text.contains('M') && (lo..=hi).contains(&(value * 1e-9)) {
+        " (M is mega; for milli write m)"
+    } else if text
+        .chars()
+        .all(|c| c.is_ascii_digit() || c == '.' || c == ' ')
+    {
+        " (is a prefix missing?)"
+    } else {
+        ""
+    };
+    Some(format!(
+        "part {name}: {} is outside the usual {} … {} of a {kind}; it is used as written{hint}",
+        eng(value),
+        eng(lo),
+        eng(hi)
+    ))
 }
 
 /// Maps byte offsets to 1-based line and column.
@@ -201,7 +259,14 @@ const PART_KEYS: &[&str] = &[
 
 const TOP_KEYS: &[&str] = &["title", "caution", "sweep", "parts", "responses", "limits"];
 const SWEEP_KEYS: &[&str] = &["from", "to", "per_decade", "points", "at"];
-const RESPONSE_KEYS: &[&str] = &["ratio", "impedance", "admittance", "loop_gain"];
+const RESPONSE_KEYS: &[&str] = &[
+    "ratio",
+    "impedance",
+    "admittance",
+    "loop_gain",
+    "level_db",
+    "reference",
+];
 const LIMIT_KEYS: &[&str] = &["response", "from", "to", "min_db", "max_db"];
 
 fn backticked(list: &[&str]) -> String {
@@ -366,6 +431,7 @@ pub fn parse(text: &str) -> Result<Design, DesignError> {
         builder,
         spans: Vec::new(),
         error: None,
+        warnings: Vec::new(),
     };
     let doc = match tree::parse_with(text, &mut reader) {
         Ok(doc) => doc,
@@ -404,7 +470,12 @@ pub fn parse(text: &str) -> Result<Design, DesignError> {
         let entry = table(&pos, value, || format!("part {}", key.text))?;
         reader.add(&key.text, entry)?;
     }
-    let PartsReader { builder, spans, .. } = reader;
+    let PartsReader {
+        builder,
+        spans,
+        warnings,
+        ..
+    } = reader;
     let mut network = builder.build_locating().map_err(|(e, at)| {
         let span = at
             .and_then(|i| spans.get(i.0).cloned())
@@ -458,6 +529,7 @@ pub fn parse(text: &str) -> Result<Design, DesignError> {
         responses,
         limits,
         caution,
+        warnings,
     })
 }
 
@@ -564,12 +636,13 @@ struct PartsReader<'p, 't> {
     spans: Vec<Range<usize>>,
     /// The error that stopped the parse.
     error: Option<DesignError>,
+    warnings: Vec<DesignWarning>,
 }
 
 impl PartsReader<'_, '_> {
     fn add(&mut self, name: &str, entry: Table<'_, '_>) -> Result<(), DesignError> {
         self.spans.push(entry.span());
-        add_part(self.pos, &mut self.builder, name, entry)
+        add_part(self.pos, &mut self.builder, name, entry, &mut self.warnings)
     }
 }
 
@@ -607,6 +680,7 @@ fn add_part(
     b: &mut NetworkBuilder,
     name: &str,
     entry: Table<'_, '_>,
+    warnings: &mut Vec<DesignWarning>,
 ) -> Result<(), DesignError> {
     let span = entry.span();
     let e = Fields::of_any(entry, &[KINDS, PART_KEYS], pos, |k| {
@@ -693,6 +767,18 @@ fn add_part(
                 _ => Quantity::Inductance,
             };
             let x = value(kind_value, q)?;
+            let text = match kind_value.scalar() {
+                Some(Scalar::Str(t)) => Some(t),
+                _ => None,
+            };
+            if let Some(message) = unusual_value(kind, name, x, text.as_deref()) {
+                let (line, column) = pos.at(kind_value.span().start);
+                warnings.push(DesignWarning {
+                    line,
+                    column,
+                    message,
+                });
+            }
             let r = match kind {
                 "resistor" => b.resistor(name, &a, &bb, x),
                 "capacitor" => b.capacitor(name, &a, &bb, x),
@@ -1043,10 +1129,52 @@ fn read_response(
         Some(v) => boolean(pos, v, &format!("response {name}: loop_gain"))?,
         None => false,
     };
+    let level_db = match e.value("level_db") {
+        Some(v) => Some(number(
+            pos,
+            v,
+            Quantity::Ratio,
+            &format!("response {name}: level_db"),
+        )?),
+        None => None,
+    };
+    let reference = match e.value("reference") {
+        Some(v) => {
+            let text = string(pos, v, &format!("response {name}: reference"))?;
+            Some(
+                parse_reference(&text)
+                    .map_err(|m| pos.err(v.span(), format!("response {name}: {m}")))?,
+            )
+        }
+        None => None,
+    };
     Ok(ResponseSpec {
         name: name.to_string(),
         kind,
         loop_gain,
+        level_db,
+        reference,
+    })
+}
+
+/// Reads a reference for the figures' levels: `auto`, `dc`, `hf`, `peak`, `absolute` or a
+/// frequency such as `1 kHz`. The error lists the accepted words.
+pub fn parse_reference(text: &str) -> Result<crate::metrics::Reference, String> {
+    use crate::metrics::Reference;
+    Ok(match text.trim() {
+        "auto" => Reference::Auto,
+        "dc" => Reference::Dc,
+        "hf" => Reference::Hf,
+        "peak" => Reference::Peak,
+        "absolute" => Reference::Absolute,
+        f if f.starts_with(|c: char| c.is_ascii_digit() || c == '.') => {
+            Reference::AtFrequency(parse_value(f, Quantity::Frequency).map_err(|e| e.to_string())?)
+        }
+        other => {
+            return Err(format!(
+                "reference {other:?} is not one of auto, dc, hf, peak, absolute or a frequency such as 1 kHz"
+            ))
+        }
     })
 }
 

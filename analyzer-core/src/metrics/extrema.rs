@@ -1,0 +1,289 @@
+//! Peaks and notches of `|H|`: found on the grid and around the response's pole and zero
+//! pairs, refined on the network, and weighed by their prominence.
+//!
+//! The *skeleton* of a swept response is the sequence of its sweep ends, its refined extrema
+//! and any grid turning points too small to refine (rounding wiggles below [`NOISE_DB`]).
+//! Between two consecutive skeleton points `|H|` is monotonic, so every minimum or maximum
+//! over an interval is a skeleton point: the prominence of each extremum (computed here as
+//! `scipy.signal.peak_prominences` defines it, with a monotonic stack in linear time) and the
+//! crossings between turning points do not depend on the grid that found them.
+
+use super::{Points, Refiner};
+use crate::poles::PoleZero;
+use crate::response::AnalysisError;
+
+/// Grid turning points whose swing to the neighbouring turning points is below this (dB)
+/// are rounding, not extrema, and are not refined.
+pub const NOISE_DB: f64 = 1e-6;
+
+/// Points per side of the local scan around a pole or zero pair, and their spacing in
+/// `ln f` in units of the pair's half-bandwidth `1/(2Q)`.
+const SCAN_POINTS: i32 = 12;
+const SCAN_STEP: f64 = 0.5;
+
+/// Frequencies of a local scan around a pair at `f0` with quality factor `q`, within
+/// `[lo, hi]`: `f0·exp(m·h)` for |m| ≤ 12 with `h = 1/(4Q)` (at most 0.5), so a narrow
+/// resonance between two grid points is straddled by several scan points.
+pub fn local_scan(f0: f64, q: f64, lo: f64, hi: f64) -> Vec<f64> {
+    let h = (SCAN_STEP / (2.0 * q.max(0.5))).min(0.5);
+    (-SCAN_POINTS..=SCAN_POINTS)
+        .map(|m| f0 * (f64::from(m) * h).exp())
+        .filter(|f| *f >= lo && *f <= hi && f.is_finite())
+        .collect()
+}
+
+/// One point of the skeleton.
+#[derive(Clone, Copy, Debug)]
+struct Node {
+    f: f64,
+    db: f64,
+    /// Some(peak) for a refined extremum.
+    refined: Option<bool>,
+}
+
+/// The skeleton of a response over its sweep.
+pub struct Skeleton {
+    nodes: Vec<Node>,
+}
+
+impl Skeleton {
+    /// Finds and refines the extrema of response `probe` over the usable grid `pts`, seeded
+    /// also by the pole and zero pairs of `pz` with Q > 0.5 inside the sweep.
+    pub(super) fn find(
+        probe: &mut Refiner<'_, '_>,
+        pts: &Points<'_>,
+        pz: Option<&PoleZero>,
+    ) -> Result<Skeleton, AnalysisError> {
+        let Some((lo, hi)) = pts.range() else {
+            return Ok(Skeleton { nodes: Vec::new() });
+        };
+        // Turning points of the grid (grid indices), with the two ends.
+        let idx: Vec<usize> = pts.indices().collect();
+        let db = |k: usize| pts.db[k];
+        let mut turning: Vec<usize> = Vec::new();
+        for w in idx.windows(3) {
+            let (i, j, k) = (w[0], w[1], w[2]);
+            let peak = db(j) > db(i) && db(j) >= db(k);
+            let notch = db(j) < db(i) && db(j) <= db(k);
+            if peak || notch {
+                turning.push(j);
+            }
+        }
+        // Swing of each turning point to its neighbours in the turning sequence (ends
+        // included): rounding wiggles have none worth refining.
+        let (first, last) = (idx[0], idx[idx.len() - 1]);
+        let seq: Vec<usize> = std::iter::once(first)
+            .chain(turning.iter().copied())
+            .chain(std::iter::once(last))
+            .collect();
+        let mut nodes: Vec<Node> = Vec::new();
+        let mut refined: Vec<(f64, f64, bool)> = Vec::new();
+        // Grid indices of each turning point's neighbours, to bracket it.
+        let pos = |k: usize| idx.binary_search(&k).unwrap_or(0);
+        for t in 1..seq.len().saturating_sub(1) {
+            let (a, j, b) = (seq[t - 1], seq[t], seq[t + 1]);
+            let swing = (db(j) - db(a)).abs().max((db(j) - db(b)).abs());
+            let peak = db(j) > db(a);
+            if swing < NOISE_DB {
+                nodes.push(Node {
+                    f: pts.freq(j),
+                    db: db(j),
+                    refined: None,
+                });
+                continue;
+            }
+            let p = pos(j);
+            let (fl, fm, fh) = (
+                pts.freq(idx[p.saturating_sub(1)]),
+                pts.freq(j),
+                pts.freq(idx[(p + 1).min(idx.len() - 1)]),
+            );
+            let f = probe.extremum(fl, fm, fh, peak)?;
+            refined.push((f, probe.db(f)?, peak));
+        }
+        // Seeds: a local scan of the slope's sign around each pair.
+        if let Some(pz) = pz {
+            for (f0, q, _) in pz.seeds(0.5) {
+                if f0 < lo || f0 > hi {
+                    continue;
+                }
+                let scan = local_scan(f0, q, lo, hi);
+                let mut prev: Option<(f64, f64)> = None;
+                let mut slopes = Vec::with_capacity(scan.len());
+                for &f in &scan {
+                    slopes.push((f, probe.slope(f)?));
+                }
+                for (k, &(f, s)) in slopes.iter().enumerate() {
+                    if let Some((fp, sp)) = prev.replace((f, s)) {
+                        if (sp > 0.0) != (s > 0.0) && sp != 0.0 && s != 0.0 {
+                            let peak = sp > 0.0;
+                            let mid = slopes.get(k.saturating_sub(1)).map_or(f, |x| x.0);
+                            let fe = probe.extremum(fp, mid, f, peak)?;
+                            refined.push((fe, probe.db(fe)?, peak));
+                        }
+                    }
+                }
+            }
+        }
+        // One entry per extremum (a grid turning point and a seed may find the same one).
+        refined.sort_by(|a, b| a.0.total_cmp(&b.0));
+        refined.dedup_by(|b, a| (b.0 - a.0).abs() <= 1e-9 * a.0);
+        nodes.extend(refined.iter().map(|&(f, db, peak)| Node {
+            f,
+            db,
+            refined: Some(peak),
+        }));
+        nodes.push(Node {
+            f: pts.freq(first),
+            db: db(first),
+            refined: None,
+        });
+        if last != first {
+            nodes.push(Node {
+                f: pts.freq(last),
+                db: db(last),
+                refined: None,
+            });
+        }
+        nodes.sort_by(|a, b| a.f.total_cmp(&b.f));
+        // Keep a refined extremum over anything at the same frequency; drop extrema found
+        // at the very ends (they are the ends).
+        nodes.dedup_by(|b, a| {
+            if b.f == a.f {
+                if a.refined.is_none() {
+                    *a = *b;
+                }
+                true
+            } else {
+                false
+            }
+        });
+        Ok(Skeleton { nodes })
+    }
+
+    /// The refined extrema as (frequency, dB), ascending.
+    pub fn refined(&self) -> impl Iterator<Item = (f64, f64)> + '_ {
+        self.nodes
+            .iter()
+            .filter(|n| n.refined.is_some())
+            .map(|n| (n.f, n.db))
+    }
+
+    /// The refined peaks (`peak`) or notches as (frequency, dB), ascending.
+    pub fn of_kind(&self, peak: bool) -> impl Iterator<Item = (f64, f64)> + '_ {
+        self.nodes
+            .iter()
+            .filter(move |n| n.refined == Some(peak))
+            .map(|n| (n.f, n.db))
+    }
+
+    /// Refined extrema with at least `min_db` of prominence: (frequency, dB, is a peak,
+    /// prominence in dB), ascending in frequency.
+    pub fn prominent(&self, min_db: f64) -> Vec<(f64, f64, bool, f64)> {
+        let v: Vec<f64> = self.nodes.iter().map(|n| n.db).collect();
+        let peaks = prominences(&v);
+        let neg: Vec<f64> = v.iter().map(|x| -x).collect();
+        let notches = prominences(&neg);
+        self.nodes
+            .iter()
+            .enumerate()
+            .filter_map(|(i, n)| {
+                let peak = n.refined?;
+                let p = if peak { peaks[i] } else { notches[i] };
+                (p >= min_db).then_some((n.f, n.db, peak, p))
+            })
+            .collect()
+    }
+}
+
+/// For every index i of `v`, `v[i]` minus the higher of the lowest values between i and the
+/// nearest strictly higher value on each side (or the sequence's end): the prominence of i
+/// as a peak (zero where a neighbour is not lower). Linear time with a monotonic stack.
+pub fn prominences(v: &[f64]) -> Vec<f64> {
+    let left = bases(v.iter().copied());
+    let mut right = bases(v.iter().rev().copied());
+    right.reverse();
+    v.iter()
+        .zip(left.iter().zip(&right))
+        .map(|(&x, (&l, &r))| (x - l.max(r)).max(0.0))
+        .collect()
+}
+
+/// For each position, the lowest value strictly between it and the nearest earlier value
+/// strictly higher than it (from the start when there is none), or its own value when
+/// nothing lies between.
+fn bases(v: impl Iterator<Item = f64>) -> Vec<f64> {
+    // Stack of (value, lowest value between it and the entry above it or the scan point).
+    let mut stack: Vec<(f64, f64)> = Vec::new();
+    let mut out = Vec::new();
+    // The lowest of all values so far: the base when no earlier value is higher.
+    let mut prefix_min = f64::INFINITY;
+    for x in v {
+        let mut low = f64::INFINITY;
+        while let Some(&(tv, tl)) = stack.last() {
+            if tv > x {
+                break;
+            }
+            low = low.min(tv).min(tl);
+            stack.pop();
+        }
+        let base = match stack.last_mut() {
+            Some(top) => {
+                let b = top.1.min(low);
+                top.1 = b;
+                b
+            }
+            None => prefix_min,
+        };
+        out.push(if base.is_finite() { base } else { x });
+        prefix_min = prefix_min.min(x);
+        stack.push((x, f64::INFINITY));
+        // Values pushed later lie between this entry and the scan point: they reach the
+        // entries below through `low` when this one is popped.
+    }
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The prominences of a small sequence, against the definition worked by hand (the
+    /// one `scipy.signal.peak_prominences` documents): 3 stands 2 above the higher base
+    /// (1); the middle 2 stands 1 above its bases (1 and 1); 5 is the highest, so its
+    /// prominence reaches the lowest point on its lower side (0).
+    #[test]
+    fn prominence_follows_its_definition() {
+        let v = [0.0, 3.0, 1.0, 2.0, 1.0, 5.0, 4.0, 4.5, 0.0];
+        let p = prominences(&v);
+        assert_eq!(p[1], 2.0);
+        assert_eq!(p[3], 1.0);
+        assert_eq!(p[5], 5.0);
+        assert_eq!(p[7], 0.5);
+        // A brute-force check on a longer wiggly sequence.
+        let w: Vec<f64> = (0..200)
+            .map(|k| (k as f64 * 0.37).sin() * (1.0 + (k as f64 * 0.11).cos()))
+            .collect();
+        let fast = prominences(&w);
+        for i in 0..w.len() {
+            let side = |it: &mut dyn Iterator<Item = usize>| {
+                let mut low = f64::INFINITY;
+                for j in it {
+                    if w[j] > w[i] {
+                        break;
+                    }
+                    low = low.min(w[j]);
+                }
+                if low.is_finite() {
+                    low
+                } else {
+                    w[i]
+                }
+            };
+            let l = side(&mut (0..i).rev());
+            let r = side(&mut (i + 1..w.len()));
+            let slow = (w[i] - l.max(r)).max(0.0);
+            assert!((fast[i] - slow).abs() < 1e-12, "{i}: {} vs {slow}", fast[i]);
+        }
+    }
+}

@@ -1,0 +1,574 @@
+//! Poles and zeros of every response, from the pencil of the network itself.
+//!
+//! The network obeys `(G + sC)·x = b`. Its natural frequencies are the values of `s` where
+//! `det(G + sC) = 0`: the finite generalized eigenvalues of the pencil `(G, −C)`. A response
+//! read as `q(s)ᵀ·x + k` (a node voltage, a part's current, possibly with a constant) under
+//! excitation `b` has, by the Schur complement,
+//!
+//! ```text
+//! det [ G + sC    b ]  =  det(G + sC) · (k + q(s)ᵀ (G + sC)⁻¹ b)
+//!     [ −q(s)ᵀ    k ]
+//! ```
+//!
+//! so its zeros are the finite eigenvalues of this bordered pencil (the invariant zeros of
+//! that input/output pair). A ratio `N/D` of two read-outs of one excitation has the zeros of
+//! `N` as zeros and the zeros of `D` as poles (for a voltage ratio against an ideal source,
+//! `D` is constant and its bordered pencil gives back the natural frequencies); a
+//! driving-point impedance under a test current has the natural frequencies as poles; an
+//! admittance swaps the two. Pole–zero pairs that coincide within [`CANCEL_TOL`] (relative)
+//! are modes the response cannot see: they are dropped, and counted.
+//!
+//! The eigenvalues come from faer's QZ algorithm (real QZ when the pencil is real, complex
+//! otherwise) on a scaled pencil: frequency is measured in units of `ω_s` (the sweep's
+//! geometric centre), and rows and columns are equilibrated by powers of two, which changes
+//! no eigenvalue but puts entries as different as 1/R ≈ 1e-4 S, ωC ≈ 1e-9 and an op-amp's
+//! 1e5 on one footing. An eigenvalue `λ = α/β` of the scaled pencil is
+//!
+//! * infinite when `|β| ≤ INFINITE_TOL·|α|` (more than 10¹⁰·ω_s away: MNA pencils have many
+//!   such, from every branch row without a `C` term);
+//! * at the origin when `|λ| ≤ ORIGIN_TOL` (6 decades below ω_s: a root of multiplicity m
+//!   at the origin comes out of QZ split by about ε^(1/m), 1e-8 for a double root);
+//! * indeterminate when `α` and `β` are both at rounding level (a pencil singular for every
+//!   `s`: the read-out is zero at every frequency).
+//!
+//! Dense QZ costs O(n³): networks above [`MAX_UNKNOWNS`] unknowns are refused with the reason
+//! (measured, see the constant), and their figures rely on the sweep and the solver alone.
+
+use crate::response::Analysis;
+use crate::stamp::{Readout, System};
+use faer::diag::Diag;
+use faer::dyn_stack::{MemBuffer, MemStack};
+use faer::linalg::evd::ComputeEigenvectors;
+use faer::linalg::gevd;
+use faer::{c64, MatMut, Par};
+use num_complex::Complex64;
+use serde::Serialize;
+use std::f64::consts::PI;
+
+/// Largest system (unknowns) whose poles and zeros are computed. Dense QZ on a bordered
+/// pencil of this size took about 1 s on the 2-core CI machine
+/// (`cargo bench -p analyzer-core --bench poles`, 2026-12-03); a response needs two.
+pub const MAX_UNKNOWNS: usize = 600;
+
+/// Relative distance within which a pole and a zero cancel.
+pub const CANCEL_TOL: f64 = 1e-6;
+
+/// `|β| ≤ INFINITE_TOL·|α|`: the eigenvalue is infinite.
+pub const INFINITE_TOL: f64 = 1e-10;
+
+/// `|λ| ≤ ORIGIN_TOL` (scaled): the eigenvalue is at `s = 0`.
+pub const ORIGIN_TOL: f64 = 1e-6;
+
+/// Why poles and zeros were not computed.
+#[derive(Clone, Debug, PartialEq, thiserror::Error)]
+#[non_exhaustive]
+pub enum PoleError {
+    /// The system is too large for dense QZ.
+    #[error("poles and zeros are not computed for {unknowns} unknowns: dense QZ is limited to {limit} (about 1 s each on a 2-core machine); the figures come from the sweep and re-solves alone")]
+    TooLarge {
+        /// Unknowns of the system.
+        unknowns: usize,
+        /// The limit.
+        limit: usize,
+    },
+    /// QZ did not converge.
+    #[error("the eigenvalue iteration did not converge")]
+    NoConvergence,
+    /// No such response.
+    #[error("no response {0}")]
+    NoResponse(usize),
+}
+
+/// The finite roots of one pencil, and what was left out.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Roots {
+    /// Finite roots (rad/s), ascending in |s| then in imaginary part.
+    pub finite: Vec<Complex64>,
+    /// Eigenvalues found infinite.
+    pub infinite: usize,
+    /// Eigenvalues found indeterminate (α and β both at rounding level).
+    pub indeterminate: usize,
+}
+
+/// Poles and zeros of one response.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct PoleZero {
+    /// Poles (rad/s) after cancellation.
+    pub poles: Vec<Complex64>,
+    /// Zeros (rad/s) after cancellation.
+    pub zeros: Vec<Complex64>,
+    /// Pole–zero pairs dropped as cancelling.
+    pub cancelled: usize,
+    /// Whether the response is zero at every frequency (its numerator pencil is singular).
+    pub identically_zero: bool,
+}
+
+/// One pole or zero as a table shows it: a real root as a corner frequency, a complex pair
+/// once with its natural frequency and Q.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct RootRow {
+    /// "pole" or "zero".
+    pub what: &'static str,
+    /// Real part of s (rad/s); for a pair, of its upper member.
+    pub s_re: f64,
+    /// Imaginary part of s (rad/s), ≥ 0.
+    pub s_im: f64,
+    /// |s|/2π (Hz): the corner of a real root, the natural frequency f0 of a pair.
+    pub f0_hz: f64,
+    /// Q = |s|/(2|Re s|) of a pair (None for a real root; infinite on the jω axis).
+    pub q: Option<f64>,
+    /// Whether it is a complex pair.
+    pub pair: bool,
+    /// Re s > 0: an unstable pole, or a right-half-plane zero.
+    pub right_half_plane: bool,
+    /// At s = 0.
+    pub origin: bool,
+}
+
+impl PoleZero {
+    /// The rows of the table: poles first, then zeros, each ascending in frequency.
+    pub fn rows(&self) -> Vec<RootRow> {
+        let mut out = rows("pole", &self.poles);
+        out.extend(rows("zero", &self.zeros));
+        out
+    }
+
+    /// Complex pole pairs with Q above `q_min` and zero pairs with Q above `q_min` (near the
+    /// jω axis), as (natural frequency in Hz, Q, is a pole): the seeds of the figures'
+    /// searches for peaks, notches and resonances.
+    pub fn seeds(&self, q_min: f64) -> Vec<(f64, f64, bool)> {
+        let mut out = Vec::new();
+        for (set, pole) in [(&self.poles, true), (&self.zeros, false)] {
+            for r in rows("", set) {
+                if let Some(q) = r.q {
+                    if q > q_min {
+                        out.push((r.f0_hz, q, pole));
+                    }
+                }
+            }
+        }
+        out
+    }
+
+    /// Roots at s = 0: zeros minus poles (the low-frequency slope in units of 20 dB/decade).
+    pub fn slope_at_dc(&self) -> i64 {
+        let count = |v: &[Complex64]| v.iter().filter(|s| s.norm() == 0.0).count() as i64;
+        count(&self.zeros) - count(&self.poles)
+    }
+
+    /// Finite zeros minus finite poles (the slope as ω → ∞, in units of 20 dB/decade).
+    pub fn slope_at_infinity(&self) -> i64 {
+        self.zeros.len() as i64 - self.poles.len() as i64
+    }
+
+    /// The largest and smallest nonzero |s| (rad/s) among poles and zeros, if any.
+    pub fn span(&self) -> Option<(f64, f64)> {
+        let m: Vec<f64> = self
+            .poles
+            .iter()
+            .chain(&self.zeros)
+            .map(|s| s.norm())
+            .filter(|&m| m > 0.0)
+            .collect();
+        let lo = m.iter().copied().fold(f64::INFINITY, f64::min);
+        let hi = m.iter().copied().fold(0.0, f64::max);
+        (hi > 0.0).then_some((lo, hi))
+    }
+}
+
+fn rows(what: &'static str, set: &[Complex64]) -> Vec<RootRow> {
+    let mut out: Vec<RootRow> = set
+        .iter()
+        .filter(|s| s.im >= 0.0)
+        .map(|s| {
+            let pair = s.im > 0.0;
+            let m = s.norm();
+            RootRow {
+                what,
+                s_re: s.re,
+                s_im: s.im,
+                f0_hz: m / (2.0 * PI),
+                q: pair.then(|| {
+                    if s.re == 0.0 {
+                        f64::INFINITY
+                    } else {
+                        m / (2.0 * s.re.abs())
+                    }
+                }),
+                pair,
+                right_half_plane: s.re > 0.0,
+                origin: m == 0.0,
+            }
+        })
+        .collect();
+    out.sort_by(|a, b| a.f0_hz.total_cmp(&b.f0_hz));
+    out
+}
+
+/// A dense pencil `A + s·B` of order m (column-major), complex in general.
+struct Pencil {
+    m: usize,
+    a: Vec<c64>,
+    b: Vec<c64>,
+}
+
+impl Pencil {
+    /// `G + sC` of the system, bordered (when given) by the excitation `rhs` as a last column
+    /// and `−q(s)ᵀ` as a last row with the constant `k` in the corner.
+    fn new(sys: &System, border: Option<(&[Complex64], &Readout, Complex64)>) -> Pencil {
+        let n = sys.n;
+        let m = n + usize::from(border.is_some());
+        let mut a = vec![c64::new(0.0, 0.0); m * m];
+        let mut b = vec![c64::new(0.0, 0.0); m * m];
+        for (k, &(r, c)) in sys.pattern.iter().enumerate() {
+            if r < n && c < n {
+                a[c * m + r] += sys.g[k];
+                b[c * m + r] += sys.c[k];
+            }
+        }
+        if let Some((rhs, q, k)) = border {
+            for (r, v) in rhs.iter().enumerate().take(n) {
+                a[n * m + r] = *v;
+            }
+            for &(c, w) in &q.g {
+                if c < n {
+                    a[c * m + n] -= w;
+                }
+            }
+            for &(c, w) in &q.c {
+                if c < n {
+                    b[c * m + n] -= w;
+                }
+            }
+            a[n * m + n] = k;
+        }
+        Pencil { m, a, b }
+    }
+
+    fn is_real(&self) -> bool {
+        self.a.iter().chain(&self.b).all(|z| z.im == 0.0)
+    }
+
+    /// Scales B by ω_s and equilibrates rows and columns of |A| + |B| by powers of two.
+    fn scale(&mut self, omega_s: f64) {
+        let m = self.m;
+        for v in &mut self.b {
+            *v *= omega_s;
+        }
+        let mag = |z: c64| z.re.abs() + z.im.abs();
+        let pow2 = |x: f64| {
+            if x > 0.0 && x.is_finite() {
+                (2f64).powi(-(x.log2().round() as i32))
+            } else {
+                1.0
+            }
+        };
+        for _ in 0..8 {
+            let mut row = vec![0.0f64; m];
+            for c in 0..m {
+                for (r, rv) in row.iter_mut().enumerate() {
+                    let k = c * m + r;
+                    *rv = rv.max(mag(self.a[k]) + mag(self.b[k]));
+                }
+            }
+            for c in 0..m {
+                for (r, rv) in row.iter().enumerate() {
+                    let f = pow2(*rv);
+                    self.a[c * m + r] *= f;
+                    self.b[c * m + r] *= f;
+                }
+            }
+            for c in 0..m {
+                let col = (0..m)
+                    .map(|r| mag(self.a[c * m + r]) + mag(self.b[c * m + r]))
+                    .fold(0.0, f64::max);
+                let f = pow2(col);
+                for r in 0..m {
+                    self.a[c * m + r] *= f;
+                    self.b[c * m + r] *= f;
+                }
+            }
+        }
+    }
+
+    /// Eigenvalues of the pencil as (α, β) pairs: `det(A + λB) = 0` at `λ = α/β`.
+    fn eigenvalues(&self) -> Result<Vec<(c64, c64)>, PoleError> {
+        let m = self.m;
+        if m == 0 {
+            return Ok(Vec::new());
+        }
+        let par = Par::Seq;
+        if self.is_real() {
+            let mut a: Vec<f64> = self.a.iter().map(|z| z.re).collect();
+            // det(A + λB) = 0 ⇔ A·v = λ·(−B)·v.
+            let mut b: Vec<f64> = self.b.iter().map(|z| -z.re).collect();
+            let (mut sr, mut si, mut beta) = (Diag::zeros(m), Diag::zeros(m), Diag::zeros(m));
+            let mut mem = MemBuffer::new(gevd::gevd_scratch::<f64>(
+                m,
+                ComputeEigenvectors::No,
+                ComputeEigenvectors::No,
+                par,
+                Default::default(),
+            ));
+            gevd::gevd_real(
+                MatMut::from_column_major_slice_mut(&mut a, m, m),
+                MatMut::from_column_major_slice_mut(&mut b, m, m),
+                sr.as_mut(),
+                si.as_mut(),
+                beta.as_mut(),
+                None,
+                None,
+                par,
+                MemStack::new(&mut mem),
+                Default::default(),
+            )
+            .map_err(|_| PoleError::NoConvergence)?;
+            Ok((0..m)
+                .map(|k| (c64::new(sr[k], si[k]), c64::new(beta[k], 0.0)))
+                .collect())
+        } else {
+            let mut a = self.a.clone();
+            let mut b: Vec<c64> = self.b.iter().map(|z| -z).collect();
+            let (mut s, mut beta) = (Diag::zeros(m), Diag::zeros(m));
+            let mut mem = MemBuffer::new(gevd::gevd_scratch::<c64>(
+                m,
+                ComputeEigenvectors::No,
+                ComputeEigenvectors::No,
+                par,
+                Default::default(),
+            ));
+            gevd::gevd_cplx(
+                MatMut::from_column_major_slice_mut(&mut a, m, m),
+                MatMut::from_column_major_slice_mut(&mut b, m, m),
+                s.as_mut(),
+                beta.as_mut(),
+                None,
+                None,
+                par,
+                MemStack::new(&mut mem),
+                Default::default(),
+            )
+            .map_err(|_| PoleError::NoConvergence)?;
+            Ok((0..m).map(|k| (s[k], beta[k])).collect())
+        }
+    }
+}
+
+/// The finite roots of `det(pencil) = 0` in rad/s, with infinite and indeterminate ones
+/// counted, on a pencil scaled to `omega_s`.
+fn roots(mut p: Pencil, omega_s: f64) -> Result<Roots, PoleError> {
+    let real = p.is_real();
+    p.scale(omega_s);
+    let m = p.m;
+    let round = 1e3 * (m.max(1) as f64) * f64::EPSILON;
+    let mut out = Roots::default();
+    for (alpha, beta) in p.eigenvalues()? {
+        let (na, nb) = (alpha.norm(), beta.norm());
+        if !(na.is_finite() && nb.is_finite()) {
+            return Err(PoleError::NoConvergence);
+        }
+        if na <= round && nb <= round {
+            out.indeterminate += 1;
+            continue;
+        }
+        if nb <= INFINITE_TOL * na {
+            out.infinite += 1;
+            continue;
+        }
+        let lambda = alpha / beta;
+        let mut s = if lambda.norm() <= ORIGIN_TOL {
+            Complex64::new(0.0, 0.0)
+        } else {
+            lambda * omega_s
+        };
+        // A real pencil's roots come in exact conjugate pairs; a real root is real.
+        if real && s.im.abs() <= 1e-14 * s.norm() {
+            s.im = 0.0;
+        }
+        out.finite.push(s);
+    }
+    if real {
+        // Make pairs exactly conjugate (QZ returns them so to rounding).
+        let upper: Vec<Complex64> = out.finite.iter().copied().filter(|s| s.im > 0.0).collect();
+        out.finite.retain(|s| s.im == 0.0);
+        for s in upper {
+            out.finite.push(s);
+            out.finite.push(s.conj());
+        }
+    }
+    out.finite
+        .sort_by(|a, b| a.norm().total_cmp(&b.norm()).then(a.im.total_cmp(&b.im)));
+    Ok(out)
+}
+
+/// A frequency scale for the pencil: the geometric mean of ‖G‖/‖C‖ row by row where both
+/// are present, or 1 rad/s.
+fn matrix_scale(sys: &System) -> f64 {
+    let (mut sum, mut count) = (0.0, 0usize);
+    for &(g, c) in sys.row_abs() {
+        if g > 0.0 && c > 0.0 {
+            sum += (g / c).ln();
+            count += 1;
+        }
+    }
+    if count == 0 {
+        1.0
+    } else {
+        (sum / count as f64).exp()
+    }
+}
+
+/// The natural frequencies of the network (all sources off), in rad/s.
+pub fn natural_frequencies(sys: &System, omega_s: Option<f64>) -> Result<Roots, PoleError> {
+    if sys.n > MAX_UNKNOWNS {
+        return Err(PoleError::TooLarge {
+            unknowns: sys.n,
+            limit: MAX_UNKNOWNS,
+        });
+    }
+    let w = omega_s.unwrap_or_else(|| matrix_scale(sys));
+    roots(Pencil::new(sys, None), w)
+}
+
+/// The zeros of the read-out `q(s)ᵀ·x + k` under excitation `rhs`, in rad/s.
+fn readout_zeros(
+    sys: &System,
+    rhs: &[Complex64],
+    q: &Readout,
+    design: bool,
+    omega_s: f64,
+) -> Result<Roots, PoleError> {
+    let k = if design {
+        q.constant
+    } else {
+        Complex64::new(0.0, 0.0)
+    };
+    roots(Pencil::new(sys, Some((rhs, q, k))), omega_s)
+}
+
+/// Drops pole–zero pairs that coincide within [`CANCEL_TOL`]; returns how many.
+fn cancel(poles: &mut Vec<Complex64>, zeros: &mut Vec<Complex64>) -> usize {
+    let mut dropped = 0;
+    let mut i = 0;
+    while i < zeros.len() {
+        let z = zeros[i];
+        let best = poles
+            .iter()
+            .enumerate()
+            .map(|(j, p)| (j, (z - p).norm()))
+            .min_by(|a, b| a.1.total_cmp(&b.1));
+        match best {
+            Some((j, d)) if d <= CANCEL_TOL * z.norm().max(poles[j].norm()) => {
+                poles.remove(j);
+                zeros.remove(i);
+                dropped += 1;
+            }
+            _ => i += 1,
+        }
+    }
+    dropped
+}
+
+/// Poles and zeros of response `index`, with frequencies scaled to `omega_s` (rad/s; the
+/// sweep's geometric centre is a good choice) or, when None, to the network's own scale.
+/// Fails when the system is above [`MAX_UNKNOWNS`] or QZ does not converge.
+pub fn pole_zero(
+    analysis: &Analysis,
+    index: usize,
+    omega_s: Option<f64>,
+) -> Result<PoleZero, PoleError> {
+    let sys = analysis.system();
+    if sys.n > MAX_UNKNOWNS {
+        return Err(PoleError::TooLarge {
+            unknowns: sys.n,
+            limit: MAX_UNKNOWNS,
+        });
+    }
+    let r = analysis
+        .readout(index)
+        .ok_or(PoleError::NoResponse(index))?;
+    let w = omega_s.unwrap_or_else(|| matrix_scale(sys));
+    let num = readout_zeros(sys, r.rhs, r.numerator, r.design, w)?;
+    let den = match r.denominator {
+        Some(d) => readout_zeros(sys, r.rhs, d, r.design, w)?,
+        None => roots(Pencil::new(sys, None), w)?,
+    };
+    let identically_zero = num.indeterminate > 0;
+    let (mut zeros, mut poles) = (num.finite, den.finite);
+    if r.invert {
+        std::mem::swap(&mut zeros, &mut poles);
+    }
+    let cancelled = cancel(&mut poles, &mut zeros);
+    Ok(PoleZero {
+        poles,
+        zeros,
+        cancelled,
+        identically_zero,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::design;
+
+    fn pz(toml: &str) -> PoleZero {
+        let d = design::parse(toml).unwrap();
+        let a = Analysis::new(d.network, d.responses).unwrap();
+        pole_zero(&a, 0, Some(2.0 * PI * 1e3)).unwrap()
+    }
+
+    fn close(a: Complex64, b: Complex64, tol: f64) -> bool {
+        (a - b).norm() <= tol * b.norm().max(1.0)
+    }
+
+    /// RC low-pass: one pole at −1/RC, no zero (closed form).
+    #[test]
+    fn rc_low_pass_has_one_real_pole() {
+        let p = pz(r#"[parts]
+V1 = { voltage = "1", between = ["in", "gnd"] }
+R1 = { resistor = "1k", between = ["in", "out"] }
+C1 = { capacitor = "100n", between = ["out", "gnd"] }
+[responses]
+gain = { ratio = ["out", "in"] }"#);
+        assert_eq!(p.zeros.len(), 0, "{p:?}");
+        assert_eq!(p.poles.len(), 1, "{p:?}");
+        assert!(close(p.poles[0], Complex64::new(-1e4, 0.0), 1e-12), "{p:?}");
+        assert_eq!((p.slope_at_dc(), p.slope_at_infinity()), (0, -1));
+    }
+
+    /// RC high-pass: a zero at the origin and a pole at −1/RC (closed form).
+    #[test]
+    fn rc_high_pass_has_a_zero_at_the_origin() {
+        let p = pz(r#"[parts]
+V1 = { voltage = "1", between = ["in", "gnd"] }
+C1 = { capacitor = "100n", between = ["in", "out"] }
+R1 = { resistor = "1k", between = ["out", "gnd"] }
+[responses]
+gain = { ratio = ["out", "in"] }"#);
+        assert_eq!(p.zeros, vec![Complex64::new(0.0, 0.0)], "{p:?}");
+        assert!(close(p.poles[0], Complex64::new(-1e4, 0.0), 1e-12), "{p:?}");
+        assert_eq!((p.slope_at_dc(), p.slope_at_infinity()), (1, 0));
+    }
+
+    /// Series RLC impedance: zeros at the resonance pair, a pole at the origin, Q = √(L/C)/R
+    /// (closed forms).
+    #[test]
+    fn series_rlc_impedance_has_its_resonance_as_zeros() {
+        let (r, l, c): (f64, f64, f64) = (47.0, 10e-3, 22e-9);
+        let p = pz(&format!(
+            r#"[parts]
+L1 = {{ inductor = {l:e}, between = ["in", "m"] }}
+C1 = {{ capacitor = {c:e}, between = ["m", "n"] }}
+R1 = {{ resistor = {r:e}, between = ["n", "gnd"] }}
+[responses]
+z = {{ impedance = ["in", "gnd"] }}"#
+        ));
+        let rows = p.rows();
+        let zero = rows.iter().find(|x| x.what == "zero" && x.pair).unwrap();
+        let f0 = 1.0 / (2.0 * PI * (l * c).sqrt());
+        assert!((zero.f0_hz / f0 - 1.0).abs() < 1e-12, "{rows:?}");
+        assert!((zero.q.unwrap() / ((l / c).sqrt() / r) - 1.0).abs() < 1e-12);
+        assert_eq!(p.poles, vec![Complex64::new(0.0, 0.0)], "{p:?}");
+    }
+}
