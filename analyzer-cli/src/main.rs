@@ -7,7 +7,7 @@ mod output;
 mod report;
 
 use analyzer_core::design::{self, Design};
-use analyzer_core::export::{CsvStream, Polar};
+use analyzer_core::export::{self, CsvStream, Polar};
 use analyzer_core::metrics::{self, MetricOptions, Trace};
 use analyzer_core::poles;
 use analyzer_core::response::{Analysis, AnalysisError, ResponseUnit};
@@ -512,6 +512,28 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
             let r = metrics::check_limit(&ev, &grid, &traces[i], i, &figures[i], limit)
                 .map_err(|e| Failure::input(format!("{shown}: limit {}: {e}", limit.name)))?;
             checks.push(r);
+        }
+    }
+    // Poles and zeros of each response where they were computed: a CSV, and the chart.
+    if !to_stdout {
+        let title = &analysis.network().title;
+        for (spec, f) in specs.iter().zip(&figures) {
+            if f.poles.rows.is_empty() {
+                continue;
+            }
+            let stem = output::safe_file_name(&spec.name);
+            let mut csv_text = Vec::new();
+            export::write_poles_csv(&mut csv_text, &f.poles.rows)
+                .map_err(|e| Failure::output(format!("{}-poles.csv: {e}", spec.name)))?;
+            staging.bytes(&out_dir.join(format!("{stem}-poles.csv")), &csv_text)?;
+            if !args.no_plot {
+                let svg = export::render_pole_zero_svg(
+                    &format!("{title} — {}: poles × and zeros ○", spec.name),
+                    &f.poles.rows,
+                )
+                .map_err(|e| Failure::input(format!("response {}: {e}", spec.name)))?;
+                staging.bytes(&out_dir.join(format!("{stem}-poles.svg")), svg.as_bytes())?;
+            }
         }
     }
     if !to_stdout && !args.no_plot {

@@ -464,6 +464,195 @@ pub fn render_svg(input: &PlotInput<'_>) -> Result<String, PlotError> {
     Ok(svg)
 }
 
+/// Where a root sits on the pole–zero chart: its natural frequency on a log radius (decades
+/// above `inner`), its angle the angle of `s` itself (the left half-plane on the left), so
+/// Q = 1/(2·cos θ) is read off the angle θ from the negative real axis. Roots at the origin
+/// sit at the centre.
+fn chart_xy(s_re: f64, s_im: f64, inner: f64) -> (f64, f64) {
+    let m = (s_re * s_re + s_im * s_im).sqrt() / (2.0 * std::f64::consts::PI);
+    if m <= 0.0 {
+        return (0.0, 0.0);
+    }
+    let r = (m / inner).log10().max(0.0);
+    let phi = s_im.atan2(s_re);
+    (r * phi.cos(), r * phi.sin())
+}
+
+/// The pole–zero chart of one response, a look of our own: the upper half of the s-plane
+/// (pairs shown once) with the natural frequency f0 = |s|/2π on a log radius — one ring per
+/// decade, labelled in Hz — and the angle of `s` as it is, so the rays mark Q = 0.5 (the real
+/// axis), 0.71, 1, 2, 5 and 20 on both halves. Poles are drawn as crosses, zeros as rings;
+/// the right half-plane (unstable poles, right-half-plane zeros) is shaded.
+pub fn render_pole_zero_svg(
+    title: &str,
+    rows: &[crate::poles::RootRow],
+) -> Result<String, PlotError> {
+    use std::f64::consts::PI;
+    let nonzero: Vec<f64> = rows.iter().filter(|r| !r.origin).map(|r| r.f0_hz).collect();
+    let lo = nonzero.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = nonzero.iter().copied().fold(0.0, f64::max);
+    let (lo, hi) = if nonzero.is_empty() {
+        (1.0, 10.0)
+    } else {
+        (lo, hi)
+    };
+    // Rings from a decade below the lowest root to a decade above the highest.
+    let inner = 10f64.powf(lo.log10().floor() - 1.0);
+    let outer_dec = (hi / inner).log10().ceil().max(1.0) + 0.0;
+    let r_max = outer_dec;
+    let mut svg = String::new();
+    {
+        let (w, h) = (760u32, 460u32);
+        let root = SVGBackend::with_string(&mut svg, (w, h)).into_drawing_area();
+        root.fill(&WHITE).map_err(perr)?;
+        let (top, body) = root.split_vertically(44);
+        top.draw(&Text::new(
+            title.to_string(),
+            (16, 14),
+            ("sans-serif", 20).into_font().color(&INK),
+        ))
+        .map_err(perr)?;
+        let pad = 0.12 * r_max;
+        let mut chart = ChartBuilder::on(&body)
+            .margin(16)
+            .build_cartesian_2d(-(r_max + pad)..(r_max + pad), -0.04 * r_max..(r_max + pad))
+            .map_err(perr)?;
+        // The right half-plane, shaded.
+        chart
+            .draw_series(std::iter::once(Rectangle::new(
+                [(0.0, 0.0), (r_max + pad, r_max + pad)],
+                RGBColor(0xf6, 0xe7, 0xe1).filled(),
+            )))
+            .map_err(perr)?;
+        // Decade rings, labelled on the jω axis.
+        for d in 1..=(r_max as i32) {
+            let r = f64::from(d);
+            let arc: Vec<(f64, f64)> = (0..=180)
+                .map(|k| {
+                    let a = PI * f64::from(k) / 180.0;
+                    (r * a.cos(), r * a.sin())
+                })
+                .collect();
+            chart
+                .draw_series(LineSeries::new(arc, MINOR.stroke_width(1)))
+                .map_err(perr)?;
+            let f = inner * 10f64.powi(d);
+            chart
+                .draw_series(std::iter::once(Text::new(
+                    tidy_label(format_eng(f, 3, "Hz")),
+                    (0.04 * r_max, r),
+                    ("sans-serif", 12).into_font().color(&INK),
+                )))
+                .map_err(perr)?;
+        }
+        // Rays of constant Q, both halves, and the axes.
+        for q in [std::f64::consts::FRAC_1_SQRT_2, 1.0, 2.0, 5.0, 20.0] {
+            let theta = (1.0 / (2.0 * q)).acos();
+            for side in [PI - theta, theta] {
+                let end = (r_max * side.cos(), r_max * side.sin());
+                chart
+                    .draw_series(LineSeries::new([(0.0, 0.0), end], MINOR.stroke_width(1)))
+                    .map_err(perr)?;
+                if side > PI / 2.0 {
+                    chart
+                        .draw_series(std::iter::once(Text::new(
+                            format!("Q {}", tidy_label(format!("{q:.2}"))),
+                            (end.0 * 1.04, end.1 * 1.04),
+                            ("sans-serif", 11).into_font().color(&DECADE),
+                        )))
+                        .map_err(perr)?;
+                }
+            }
+        }
+        chart
+            .draw_series(LineSeries::new(
+                [(-(r_max + pad), 0.0), (r_max + pad, 0.0)],
+                INK.stroke_width(1),
+            ))
+            .map_err(perr)?;
+        chart
+            .draw_series(LineSeries::new(
+                [(0.0, 0.0), (0.0, r_max + pad)],
+                INK.stroke_width(1),
+            ))
+            .map_err(perr)?;
+        chart
+            .draw_series(std::iter::once(Text::new(
+                "jω",
+                (0.02 * r_max, r_max + 0.6 * pad),
+                ("sans-serif", 13).into_font().color(&INK),
+            )))
+            .map_err(perr)?;
+        chart
+            .draw_series(std::iter::once(Text::new(
+                "stable (left half-plane)",
+                (-(r_max + pad) * 0.98, -0.03 * r_max),
+                ("sans-serif", 11).into_font().color(&INK),
+            )))
+            .map_err(perr)?;
+        for r in rows {
+            let (x, y) = chart_xy(r.s_re, r.s_im, inner);
+            let label = match r.q {
+                Some(q) if q.is_finite() => {
+                    format!("{} Q {:.3}", tidy_label(format_eng(r.f0_hz, 4, "Hz")), q)
+                }
+                _ => tidy_label(format_eng(r.f0_hz, 4, "Hz")),
+            };
+            let color = if r.what == "pole" { MARK } else { TRACE };
+            if r.what == "pole" {
+                let mark = EmptyElement::at((x, y))
+                    + PathElement::new(vec![(-6, -6), (6, 6)], color.stroke_width(2))
+                    + PathElement::new(vec![(-6, 6), (6, -6)], color.stroke_width(2))
+                    + Text::new(
+                        label,
+                        (8, -16),
+                        ("sans-serif", 11).into_font().color(&color),
+                    );
+                chart.draw_series(std::iter::once(mark)).map_err(perr)?;
+            } else {
+                let mark = EmptyElement::at((x, y))
+                    + Circle::new((0, 0), 6, color.stroke_width(2))
+                    + Text::new(label, (8, 4), ("sans-serif", 11).into_font().color(&color));
+                chart.draw_series(std::iter::once(mark)).map_err(perr)?;
+            }
+        }
+        root.present().map_err(perr)?;
+    }
+    Ok(svg)
+}
+
+/// The poles and zeros as CSV: one row per root (both members of a pair), with its natural
+/// frequency and, for a pair, its Q.
+pub fn write_poles_csv<W: Write>(out: &mut W, rows: &[crate::poles::RootRow]) -> io::Result<()> {
+    let mut w = csv::Writer::from_writer(out);
+    w.write_record([
+        "what",
+        "s_re_rad_per_s",
+        "s_im_rad_per_s",
+        "f0_hz",
+        "q",
+        "right_half_plane",
+    ])
+    .map_err(io::Error::other)?;
+    let mut z = zmij::Buffer::new();
+    for r in rows {
+        let members: &[f64] = if r.pair { &[1.0, -1.0] } else { &[1.0] };
+        for sign in members {
+            let q = r.q.map_or(String::new(), |q| z.format(q).to_string());
+            let rec = [
+                r.what.to_string(),
+                z.format(r.s_re).to_string(),
+                z.format(sign * r.s_im).to_string(),
+                z.format(r.f0_hz).to_string(),
+                q,
+                r.right_half_plane.to_string(),
+            ];
+            w.write_record(&rec).map_err(io::Error::other)?;
+        }
+    }
+    w.flush()
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -505,3 +694,4 @@ mod tests {
         );
     }
 }
+

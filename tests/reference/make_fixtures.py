@@ -56,5 +56,35 @@ def main():
           f"scipy.signal.cheby1(3, 0.5, 2*pi*1000, analog=True), scipy {__import__('scipy').__version__}")
 
 
+def write_roots(name, z, p, note):
+    rows = [("pole", r.real, r.imag) for r in sorted(p, key=lambda r: (abs(r), r.imag))]
+    rows += [("zero", r.real, r.imag) for r in sorted(z, key=lambda r: (abs(r), r.imag))]
+    path = os.path.join(OUT, name)
+    with open(path, "w") as f:
+        f.write(f"# {note}\n")
+        f.write("what,re_rad_per_s,im_rad_per_s\n")
+        for w, re, im in rows:
+            f.write(f"{w},{float(re)!r},{float(im)!r}\n")
+    print("wrote", path)
+
+
+def roots():
+    """Poles and zeros (rad/s) of the analog prototypes the pole/zero checks realise."""
+    wc = 2 * np.pi * 1000.0
+    ver = __import__('scipy').__version__
+    z, p, _ = signal.butter(5, wc, btype="low", analog=True, output="zpk")
+    write_roots("butterworth5_1khz_roots.csv", z, p,
+                f"scipy.signal.butter(5, 2*pi*1000, analog=True, output='zpk'), scipy {ver}")
+    z, p, _ = signal.cheby1(3, 0.5, wc, btype="low", analog=True, output="zpk")
+    write_roots("chebyshev3_0p5db_1khz_roots.csv", z, p,
+                f"scipy.signal.cheby1(3, 0.5, 2*pi*1000, analog=True, output='zpk'), scipy {ver}")
+    for n in (2, 3, 4, 5):
+        z, p, _ = signal.bessel(n, 1.0, btype="low", analog=True, output="zpk", norm="delay")
+        write_roots(f"bessel{n}_delay_roots.csv", z, p,
+                    f"scipy.signal.bessel({n}, 1, analog=True, output='zpk', norm='delay') "
+                    f"(normalised to 1 s of group delay at DC), scipy {ver}")
+
+
 if __name__ == "__main__":
+    roots()
     main()

@@ -8,6 +8,7 @@ use analyzer_core::response::{Analysis, Point};
 use analyzer_core::stamp::System;
 use analyzer_core::sweep::{self, Grid, Sweep, SweepOptions};
 use num_complex::Complex64;
+use std::f64::consts::PI;
 
 /// Parses a design and sets up its analysis; panics with the error text on bad input.
 pub fn analysis(toml: &str) -> Analysis {
@@ -60,6 +61,23 @@ pub fn figures(
         Err(e) => (None, Some(e.to_string())),
     };
     analyzer_core::metrics::figures(&ev, grid, &trace, i, opts, pz.as_ref(), note).expect("figures")
+}
+
+/// Chebyshev prototype element values by the closed-form design equations for a doubly
+/// terminated ladder (published, e.g. in the standard filter-design handbooks):
+/// β = ln(coth(A/17.37)), γ = sinh(β/2n), a_k = sin((2k−1)π/2n), b_k = γ² + sin²(kπ/n),
+/// g1 = 2a1/γ, g_k = 4a_{k−1}a_k/(b_{k−1}g_{k−1}).
+pub fn chebyshev_g(n: usize, ripple_db: f64) -> Vec<f64> {
+    let beta = (1.0 / (ripple_db / 17.371_779_276_130_07).tanh()).ln();
+    let gamma = (beta / (2.0 * n as f64)).sinh();
+    let a = |k: usize| ((2 * k - 1) as f64 * PI / (2 * n) as f64).sin();
+    let b = |k: usize| gamma * gamma + (k as f64 * PI / n as f64).sin().powi(2);
+    let mut g = vec![2.0 * a(1) / gamma];
+    for k in 2..=n {
+        let prev = g[k - 2];
+        g.push(4.0 * a(k - 1) * a(k) / (b(k - 1) * prev));
+    }
+    g
 }
 
 /// Relative difference |a − b| / |b|.
@@ -142,4 +160,44 @@ pub fn branches(
         out.extend(branch);
     }
     out
+}
+
+/// Values of the quartz-crystal model of the reference checks (a 10 MHz fundamental of our
+/// own choosing): motional arm R1, L1, C1 in series, shunted by the holder capacitance C0.
+/// Q of the series arm (1/R1)·√(L1/C1) ≈ 43,000.
+pub const CRYSTAL: (f64, f64, f64, f64) = (18.5, 12.6651e-3, 20e-15, 5e-12);
+
+/// The crystal's impedance as a design: `z` between its terminals `x` and `gnd`.
+pub fn crystal_design() -> String {
+    let (r1, l1, c1, c0) = CRYSTAL;
+    format!(
+        r#"title = "crystal"
+[parts]
+R1 = {{ resistor = {r1:e}, between = ["x", "m1"] }}
+L1 = {{ inductor = {l1:e}, between = ["m1", "m2"] }}
+C1 = {{ capacitor = {c1:e}, between = ["m2", "gnd"] }}
+C0 = {{ capacitor = {c0:e}, between = ["x", "gnd"] }}
+[responses]
+z = {{ impedance = ["x", "gnd"] }}
+"#
+    )
+}
+
+/// The crystal feeding a 50 Ω load from a 1 V source: `gain`, the voltage across the load,
+/// a band-pass at the series resonance with a notch at the parallel one.
+pub fn crystal_filter_design() -> String {
+    let (r1, l1, c1, c0) = CRYSTAL;
+    format!(
+        r#"title = "crystal filter"
+[parts]
+V1 = {{ voltage = "1", between = ["src", "gnd"] }}
+R1 = {{ resistor = {r1:e}, between = ["src", "m1"] }}
+L1 = {{ inductor = {l1:e}, between = ["m1", "m2"] }}
+C1 = {{ capacitor = {c1:e}, between = ["m2", "out"] }}
+C0 = {{ capacitor = {c0:e}, between = ["src", "out"] }}
+RL = {{ resistor = "50", between = ["out", "gnd"] }}
+[responses]
+gain = {{ ratio = ["out", "src"] }}
+"#
+    )
 }

@@ -3,7 +3,7 @@
 use analyzer_core::metrics::{self, MetricOptions, Reference, HALF_POWER_DB};
 use analyzer_core::response::Analysis;
 use analyzer_core::sweep::Grid;
-use reference_suite::{analysis, fixture, ladder_design, rel};
+use reference_suite::{analysis, chebyshev_g, fixture, ladder_design, rel};
 use std::f64::consts::PI;
 
 fn figures_of(a: &Analysis, grid: &Grid, i: usize, opts: &MetricOptions) -> metrics::Figures {
@@ -114,23 +114,6 @@ fn crossing_accuracy_does_not_depend_on_grid_density() {
     assert!(rel(c, f) < 1e-10, "{c} vs {f}");
     // Closed form for −40 dB below the passband: (f/fc)^10 = 10^4 − 1.
     assert!(rel(f, 1e3 * (1e4f64 - 1.0).powf(0.1)) < 1e-9);
-}
-
-/// Chebyshev prototype element values by the closed-form design equations for a doubly
-/// terminated ladder (published, e.g. in the standard filter-design handbooks):
-/// β = ln(coth(A/17.37)), γ = sinh(β/2n), a_k = sin((2k−1)π/2n), b_k = γ² + sin²(kπ/n),
-/// g1 = 2a1/γ, g_k = 4a_{k−1}a_k/(b_{k−1}g_{k−1}).
-fn chebyshev_g(n: usize, ripple_db: f64) -> Vec<f64> {
-    let beta = (1.0 / (ripple_db / 17.371_779_276_130_07).tanh()).ln();
-    let gamma = (beta / (2.0 * n as f64)).sinh();
-    let a = |k: usize| ((2 * k - 1) as f64 * PI / (2 * n) as f64).sin();
-    let b = |k: usize| gamma * gamma + (k as f64 * PI / n as f64).sin().powi(2);
-    let mut g = vec![2.0 * a(1) / gamma];
-    for k in 2..=n {
-        let prev = g[k - 2];
-        g.push(4.0 * a(k - 1) * a(k) / (b(k - 1) * prev));
-    }
-    g
 }
 
 #[test]

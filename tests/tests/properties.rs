@@ -5,6 +5,7 @@
 //! project's own promise that a parallel sweep gives the same bits as a sequential one.
 
 use analyzer_core::network::{Network, NetworkBuilder, NodeId};
+use analyzer_core::poles::{natural_frequencies, pole_zero};
 use analyzer_core::response::{Analysis, Probe, ResponseKind, ResponseSpec};
 use analyzer_core::solve::SolverKind;
 use analyzer_core::stamp::System;
@@ -67,11 +68,11 @@ fn build(
             1 => b.inductor(&format!("L{k}"), &na, &nc, v).map(|_| ()),
             2 => b.capacitor(&format!("C{k}"), &na, &nc, v).map(|_| ()),
             3 if active => b
-                .vccs(&format!("G{k}"), (&na, &nc), (&node(1), "gnd"), v * 1e-3)
+                .vccs(&format!("gm{k}"), (&na, &nc), (&node(1), "gnd"), v * 1e-3)
                 .map(|_| ()),
             4 if active && passive_count > 0 => b
                 .cccs(
-                    &format!("F{k}"),
+                    &format!("mirror{k}"),
                     (&na, &nc),
                     &format!("T{}", 1 + k % (nodes - 1)),
                     v,
@@ -81,16 +82,21 @@ fn build(
             // draw can make a loop of voltage sources.
             5 if active => b
                 .vcvs(
-                    &format!("E{k}"),
+                    &format!("amp{k}"),
                     (&format!("x{k}"), &nc),
                     (&node(1), "gnd"),
                     v,
                 )
-                .and_then(|_| b.resistor(&format!("RE{k}"), &format!("x{k}"), &na, 100.0))
+                .and_then(|_| b.resistor(&format!("Ramp{k}"), &format!("x{k}"), &na, 100.0))
                 .map(|_| ()),
             6 if active => b
-                .ccvs(&format!("H{k}"), (&format!("y{k}"), &nc), "T1", v * 100.0)
-                .and_then(|_| b.resistor(&format!("RH{k}"), &format!("y{k}"), &na, 100.0))
+                .ccvs(
+                    &format!("trans{k}"),
+                    (&format!("y{k}"), &nc),
+                    "T1",
+                    v * 100.0,
+                )
+                .and_then(|_| b.resistor(&format!("Rtrans{k}"), &format!("y{k}"), &na, 100.0))
                 .map(|_| ()),
             _ => Ok(()),
         }
@@ -309,4 +315,110 @@ fn the_random_networks_are_not_all_trivial() {
     assert!(x.iter().all(|v| v.re.is_finite() && v.im.is_finite()));
     // The test current raises node 1 above ground.
     assert!(x[0].norm() > 0.0);
+}
+
+/// A lightly damped random network: a resistor tree of 100 kΩ … 1 MΩ to ground, a tank at
+/// node 1, and random inductors and capacitors, so high-Q natural frequencies are common.
+fn resonant(nodes: usize, tree: &[f64], lc: &[(bool, usize, usize, f64)]) -> Option<Network> {
+    let mut b = NetworkBuilder::new("resonant");
+    for i in 1..nodes {
+        let parent = (tree[i - 1] * i as f64) as usize % i;
+        b.resistor(
+            &format!("T{i}"),
+            &node(i),
+            &node(parent),
+            10f64.powf(5.0 + tree[i - 1]),
+        )
+        .ok()?;
+    }
+    b.inductor("Lt", &node(1), "gnd", 1e-3).ok()?;
+    b.capacitor("Ct", &node(1), "gnd", 1e-9).ok()?;
+    for (k, &(cap, a, c, e)) in lc.iter().enumerate() {
+        let (a, c) = (a % nodes, c % nodes);
+        if a == c {
+            continue;
+        }
+        if cap {
+            b.capacitor(
+                &format!("C{k}"),
+                &node(a),
+                &node(c),
+                10f64.powf(-11.0 + 3.0 * e),
+            )
+            .ok()?;
+        } else {
+            b.inductor(
+                &format!("L{k}"),
+                &node(a),
+                &node(c),
+                10f64.powf(-5.0 + 3.0 * e),
+            )
+            .ok()?;
+        }
+    }
+    b.build().ok()
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig { cases: 64, ..ProptestConfig::default() })]
+
+    /// Poles of a passive network lie in the closed left half-plane (common practice: a
+    /// passive network is stable), and a driving-point impedance peaks at a pole pair of
+    /// high Q with no zero nearby (there |Z(jω)| ≈ |residue / (jω − s)| is largest at
+    /// ω ≈ |s|, where the system matrix is nearly singular).
+    #[test]
+    fn passive_poles_are_stable_and_high_q_ones_peak(
+        nodes in 2usize..7,
+        tree in prop::collection::vec(0.0f64..1.0, 6),
+        lc in prop::collection::vec((any::<bool>(), 0usize..7, 0usize..7, 0.0f64..1.0), 0..6),
+        port in 1usize..7,
+    ) {
+        let Some(net) = resonant(nodes, &tree, &lc) else { return Ok(()) };
+        let p = net.node(&node(1 + port % (nodes - 1))).unwrap();
+        let spec = ResponseSpec::new("z", ResponseKind::Impedance(p, NodeId::GROUND));
+        let Ok(a) = Analysis::new(net, vec![spec]) else { return Ok(()) };
+        let roots = natural_frequencies(a.system(), None).unwrap();
+        for s in &roots.finite {
+            prop_assert!(s.re <= 1e-9 * s.norm(), "unstable pole {s} of a passive network");
+        }
+        let pz = pole_zero(&a, 0, None).unwrap();
+        for row in pz.rows().iter().filter(|r| r.what == "pole" && r.q.is_some_and(|q| q > 20.0)) {
+            let (f0, q) = (row.f0_hz, row.q.unwrap());
+            let near_zero = pz.zeros.iter().any(|z| (z.norm() / (2.0 * PI) - f0).abs() < 20.0 * f0 / q);
+            let near_pole = pz.poles.iter().filter(|s| s.im > 0.0).any(|s| {
+                let g = s.norm() / (2.0 * PI);
+                g != f0 && (g - f0).abs() < 20.0 * f0 / q
+            });
+            if near_zero || near_pole {
+                continue;
+            }
+            let z = |f: f64| reference_suite::value(&a, 0, f).norm();
+            let top = z(f0);
+            prop_assert!(top > z(f0 * (1.0 + 4.0 / q)) && top > z(f0 * (1.0 - 4.0 / q)),
+                "no peak at the pole pair f0 = {f0}, Q = {q}");
+        }
+    }
+}
+
+/// The resonant networks above do reach high Q: the property is not vacuous.
+#[test]
+fn the_resonant_networks_have_high_q_poles() {
+    let net = resonant(3, &[0.5, 0.5], &[(true, 1, 2, 0.5), (false, 2, 0, 0.5)]).unwrap();
+    let p = net.node("n1").unwrap();
+    let a = Analysis::new(
+        net,
+        vec![ResponseSpec::new(
+            "z",
+            ResponseKind::Impedance(p, NodeId::GROUND),
+        )],
+    )
+    .unwrap();
+    let pz = pole_zero(&a, 0, None).unwrap();
+    assert!(
+        pz.rows()
+            .iter()
+            .any(|r| r.what == "pole" && r.q.is_some_and(|q| q > 20.0)),
+        "{:?}",
+        pz.rows()
+    );
 }

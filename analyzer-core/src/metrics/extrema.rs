@@ -11,10 +11,17 @@
 use super::{Points, Refiner};
 use crate::poles::PoleZero;
 use crate::response::AnalysisError;
+use std::f64::consts::PI;
 
 /// Grid turning points whose swing to the neighbouring turning points is below this (dB)
 /// are rounding, not extrema, and are not refined.
 pub const NOISE_DB: f64 = 1e-6;
+
+/// Extrema closer than this (relative) are one extremum found twice.
+const DISTINCT: f64 = 1e-7;
+
+/// Points per decade of the auxiliary grid over the poles' and zeros' span.
+const AUX_PER_DECADE: f64 = 10.0;
 
 /// Points per side of the local scan around a pole or zero pair, and their spacing in
 /// `ln f` in units of the pair's half-bandwidth `1/(2Q)`.
@@ -101,6 +108,31 @@ impl Skeleton {
             let f = probe.extremum(fl, fm, fh, peak)?;
             refined.push((f, probe.db(f)?, peak));
         }
+        // A grid of the network's own: 10 points per decade over the span of its poles and
+        // zeros (a decade beyond each end, within the sweep), so an extremum that a coarse
+        // sweep steps over is found whatever the sweep's density.
+        if let Some((slo, shi)) = pz.and_then(PoleZero::span) {
+            let a = lo.max(slo / (2.0 * PI) / 10.0);
+            let b = hi.min(shi / (2.0 * PI) * 10.0);
+            if b > a {
+                let m = ((b / a).log10() * AUX_PER_DECADE).ceil().max(2.0) as usize;
+                let mut aux = Vec::with_capacity(m + 1);
+                for k in 0..=m {
+                    let f = a * (b / a).powf(k as f64 / m as f64);
+                    aux.push((f, probe.db(f)?));
+                }
+                for w in aux.windows(3) {
+                    let (x, y, z) = (w[0], w[1], w[2]);
+                    let peak = y.1 > x.1 && y.1 >= z.1;
+                    let notch = y.1 < x.1 && y.1 <= z.1;
+                    let swing = (y.1 - x.1).abs().max((y.1 - z.1).abs());
+                    if (peak || notch) && swing >= NOISE_DB {
+                        let f = probe.extremum(x.0, y.0, z.0, peak)?;
+                        refined.push((f, probe.db(f)?, peak));
+                    }
+                }
+            }
+        }
         // Seeds: a local scan of the slope's sign around each pair.
         if let Some(pz) = pz {
             for (f0, q, _) in pz.seeds(0.5) {
@@ -127,7 +159,7 @@ impl Skeleton {
         }
         // One entry per extremum (a grid turning point and a seed may find the same one).
         refined.sort_by(|a, b| a.0.total_cmp(&b.0));
-        refined.dedup_by(|b, a| (b.0 - a.0).abs() <= 1e-9 * a.0);
+        refined.dedup_by(|b, a| (b.0 - a.0).abs() <= DISTINCT * a.0);
         nodes.extend(refined.iter().map(|&(f, db, peak)| Node {
             f,
             db,

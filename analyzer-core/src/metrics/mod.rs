@@ -478,9 +478,12 @@ pub fn figures(
     let poles = PoleTable {
         rows: pz.map(PoleZero::rows).unwrap_or_default(),
         cancelled: pz.map_or(0, |p| p.cancelled),
-        note: pz_note.or_else(|| {
-            pz.filter(|p| p.identically_zero)
-                .map(|_| "the response is zero at every frequency".to_string())
+        note: pz_note.or_else(|| match pz {
+            Some(p) if p.identically_zero => Some("the response is zero at every frequency".into()),
+            Some(p) if p.unverified => Some(
+                "the largest zeros may be zeros at infinity: the response falls below the double range where its slope would tell".into(),
+            ),
+            _ => None,
         }),
     };
     let mut out = Figures {

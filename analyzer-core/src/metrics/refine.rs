@@ -368,6 +368,15 @@ impl<'e, 'a> Refiner<'e, 'a> {
             mid.ln(),
             1e-10,
         )?;
+        // The minimiser stops near √ε of a flat extremum; where the slope changes sign just
+        // around its answer, polish it as the slope's root.
+        let d = (1e-6 * (hi.ln() - lo.ln()).abs()).max(1e-9 * u.abs().max(1.0));
+        let (a, b) = ((u - d).max(lo.ln()), (u + d).min(hi.ln()));
+        let (sa, sb) = (self.slope(a.exp())?, self.slope(b.exp())?);
+        if (sa > 0.0) != (sb > 0.0) && sa != 0.0 && sb != 0.0 {
+            let r = brent_root(|x: f64| self.slope(x.exp()), a, b, sa, sb, FREQ_TOL * 0.1)?;
+            return Ok(r.exp());
+        }
         Ok(u.exp())
     }
 }
