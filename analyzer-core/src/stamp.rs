@@ -96,6 +96,8 @@ pub struct System {
     branch: Vec<Option<usize>>,
     /// Per row, Σ|g| and Σ|c| (for the residual check's norm).
     row_abs: Vec<(f64, f64)>,
+    /// Per column, Σ|g| and Σ|c| (the rows of the transpose, for transposed solves).
+    col_abs: Vec<(f64, f64)>,
 }
 
 struct Stamper {
@@ -190,6 +192,7 @@ impl System {
             unknowns,
             branch,
             row_abs: vec![(0.0, 0.0); n],
+            col_abs: vec![(0.0, 0.0); n],
         };
         let mut st = Stamper {
             triplets: Vec::with_capacity(4 * net.parts().len() + n),
@@ -213,10 +216,14 @@ impl System {
                 sys.c.push(cv);
             }
         }
-        for (k, &(r, _)) in sys.pattern.iter().enumerate() {
+        for (k, &(r, c)) in sys.pattern.iter().enumerate() {
             if let Some(row) = sys.row_abs.get_mut(r) {
                 row.0 += sys.g[k].abs();
                 row.1 += sys.c[k].abs();
+            }
+            if let Some(col) = sys.col_abs.get_mut(c) {
+                col.0 += sys.g[k].abs();
+                col.1 += sys.c[k].abs();
             }
         }
         sys.b = st.b;
@@ -339,6 +346,30 @@ impl System {
     /// Per row, Σ|g| and Σ|c| over the stored entries.
     pub fn row_abs(&self) -> &[(f64, f64)] {
         &self.row_abs
+    }
+
+    /// Per column, Σ|g| and Σ|c| over the stored entries (the rows of `(G + jωC)ᵀ`).
+    pub fn col_abs(&self) -> &[(f64, f64)] {
+        &self.col_abs
+    }
+
+    /// `y = (G + jωC)ᵀ·x` (no conjugation), for the residuals of transposed solves.
+    pub fn multiply_transposed(&self, omega: f64, x: &[Complex64], y: &mut [Complex64]) {
+        y.iter_mut().for_each(|v| *v = Complex64::new(0.0, 0.0));
+        for (k, &(r, c)) in self.pattern.iter().enumerate() {
+            let a = Complex64::new(self.g[k], omega * self.c[k]);
+            if let (Some(yc), Some(xr)) = (y.get(c).copied(), x.get(r)) {
+                y[c] = yc + a * xr;
+            }
+        }
+    }
+
+    /// `‖(G + jωC)ᵀ‖∞` bounded from the stored column sums, as [`System::norm_inf`].
+    pub fn norm_inf_transposed(&self, omega: f64) -> f64 {
+        self.col_abs
+            .iter()
+            .map(|&(g, c)| g + omega.abs() * c)
+            .fold(0.0, f64::max)
     }
 
     /// `‖G + jωC‖∞` bounded by `max_i (Σ|g_ij| + ω·Σ|c_ij|)` from the stored row sums, with

@@ -284,6 +284,51 @@ impl PointSolver for BandLu {
         }
     }
 
+    fn solve_transposed(&mut self, rhs: &mut [Complex64]) {
+        // LAPACK gbtrs with trans = 'T': Uᵀ forward, then Lᵀ backward with the interchanges
+        // undone in reverse order. Aᵀ in band order is the band order of A transposed, so
+        // the ordering maps vectors as in `solve`.
+        let BandLayout {
+            n,
+            kl,
+            ku,
+            ref order,
+            ..
+        } = *self.layout;
+        if !self.ok || rhs.len() != n {
+            return;
+        }
+        let w = 2 * kl + ku + 1;
+        let (ab, y) = (&self.ab, &mut self.work);
+        for (v, &old) in y.iter_mut().zip(order) {
+            *v = rhs[old];
+        }
+        // Uᵀ: column k of U, rows k − (kl + ku) ..= k − 1, is U(j, k) at row j, offset
+        // kl + (k − j).
+        for k in 0..n {
+            let mut s = y[k];
+            for j in k.saturating_sub(kl + ku)..k {
+                s -= ab[j * w + kl + (k - j)] * y[j];
+            }
+            y[k] = s * self.inv_diag[k];
+        }
+        // Lᵀ: the multipliers of column k sit in rows k + 1 ..= k + kl.
+        for k in (0..n).rev() {
+            let mut s = y[k];
+            for t in 0..kl.min(n - 1 - k) {
+                s -= ab[(k + 1 + t) * w + kl - 1 - t] * y[k + 1 + t];
+            }
+            y[k] = s;
+            let p = self.ipiv[k];
+            if p != k {
+                y.swap(k, p);
+            }
+        }
+        for (&v, &old) in y.iter().zip(order) {
+            rhs[old] = v;
+        }
+    }
+
     fn multiply(
         &mut self,
         _sys: &System,

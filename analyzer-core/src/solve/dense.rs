@@ -28,6 +28,7 @@ impl<'a> DenseLu<'a> {
         let req = StackReq::any_of(&[
             dfactor::lu_in_place_scratch::<usize, c64>(n, n, Par::Seq, Default::default()),
             dsolve::solve_in_place_scratch::<usize, c64>(n, 1, Par::Seq),
+            dsolve::solve_transpose_in_place_scratch::<usize, c64>(n, 1, Par::Seq),
         ]);
         DenseLu {
             sys,
@@ -73,5 +74,17 @@ impl PointSolver for DenseLu<'_> {
         let stack = MemStack::new(&mut self.mem);
         let b = MatMut::from_column_major_slice_mut(rhs, n, 1);
         dsolve::solve_in_place_with_conj(lu, lu, perm, Conj::No, b, Par::Seq, stack);
+    }
+
+    fn solve_transposed(&mut self, rhs: &mut [Complex64]) {
+        let n = self.sys.n;
+        if rhs.len() != n {
+            return;
+        }
+        let lu = faer::MatRef::from_column_major_slice(&self.a, n, n);
+        let perm = faer::perm::PermRef::new_checked(&self.perm, &self.perm_inv, n);
+        let stack = MemStack::new(&mut self.mem);
+        let b = MatMut::from_column_major_slice_mut(rhs, n, 1);
+        dsolve::solve_transpose_in_place_with_conj(lu, lu, perm, Conj::No, b, Par::Seq, stack);
     }
 }

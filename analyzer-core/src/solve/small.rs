@@ -126,6 +126,8 @@ pub struct LaneLu<const N: usize, const L: usize> {
     inv_im: [[f64; L]; N],
     perm: [[usize; N]; L],
     sys_norm: Vec<(f64, f64)>,
+    /// Column sums of |G| and |C| (the rows of the transpose).
+    sys_norm_t: Vec<(f64, f64)>,
 }
 
 impl<const N: usize, const L: usize> LaneLu<N, L> {
@@ -154,6 +156,7 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
             inv_im: [[0.0; L]; N],
             perm: [[0; N]; L],
             sys_norm: sys.row_abs().to_vec(),
+            sys_norm_t: sys.col_abs().to_vec(),
         }
     }
 
@@ -338,6 +341,63 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
         }
     }
 
+    /// Solves `Aᵀ·y = v` into `y`, every lane with its own factorisation: with `PA = LU`,
+    /// `Uᵀz = v` forward, `Lᵀw = z` backward, then `y = Pᵀw`.
+    #[inline(always)]
+    fn solve_lanes_transposed(&self, v: &LaneVec<N, L>, y: &mut LaneVec<N, L>) {
+        let (re, im) = (&self.re, &self.im);
+        let mut z = *v;
+        for i in 0..N {
+            let (mut sr, mut si) = (z.re[i], z.im[i]);
+            for j in 0..i {
+                for l in 0..L {
+                    sr[l] -= re[j][i][l] * z.re[j][l] - im[j][i][l] * z.im[j][l];
+                    si[l] -= re[j][i][l] * z.im[j][l] + im[j][i][l] * z.re[j][l];
+                }
+            }
+            let (dr, di) = (self.inv_re[i], self.inv_im[i]);
+            for l in 0..L {
+                z.re[i][l] = sr[l] * dr[l] - si[l] * di[l];
+                z.im[i][l] = sr[l] * di[l] + si[l] * dr[l];
+            }
+        }
+        for i in (0..N).rev() {
+            let (mut sr, mut si) = (z.re[i], z.im[i]);
+            for j in i + 1..N {
+                for l in 0..L {
+                    sr[l] -= re[j][i][l] * z.re[j][l] - im[j][i][l] * z.im[j][l];
+                    si[l] -= re[j][i][l] * z.im[j][l] + im[j][i][l] * z.re[j][l];
+                }
+            }
+            z.re[i] = sr;
+            z.im[i] = si;
+        }
+        for (l, perm) in self.perm.iter().enumerate() {
+            for (i, &p) in perm.iter().enumerate() {
+                y.re[p][l] = z.re[i][l];
+                y.im[p][l] = z.im[i][l];
+            }
+        }
+    }
+
+    /// `(G + jωC)ᵀ·x` per lane, summed over the pattern in the system's order as
+    /// [`System::multiply_transposed`] does.
+    #[inline(always)]
+    fn multiply_transposed(&self, x: &LaneVec<N, L>, y: &mut LaneVec<N, L>) {
+        *y = LaneVec::ZERO;
+        for &(r, c, g, cv) in &self.entries {
+            if r >= N || c >= N {
+                continue;
+            }
+            for l in 0..L {
+                let (ar, ai) = (g, self.omega[l] * cv);
+                let (xr, xi) = (x.re[r][l], x.im[r][l]);
+                y.re[c][l] += ar * xr - ai * xi;
+                y.im[c][l] += ar * xi + ai * xr;
+            }
+        }
+    }
+
     /// `(G + jωC)·x` per lane (or `C·x` times j when `derivative_only`), summed over the
     /// pattern in the system's order as [`System::multiply`] does.
     #[inline(always)]
@@ -368,8 +428,13 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
         b: &LaneVec<N, L>,
         x: &LaneVec<N, L>,
         r: &mut LaneVec<N, L>,
+        transposed: bool,
     ) -> [f64; L] {
-        self.multiply(x, r, false);
+        if transposed {
+            self.multiply_transposed(x, r);
+        } else {
+            self.multiply(x, r, false);
+        }
         for i in 0..N {
             for l in 0..L {
                 r.re[i][l] = b.re[i][l] - r.re[i][l];
@@ -379,7 +444,16 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
         let (num, bnorm, xnorm) = (r.norm(), b.norm(), x.norm());
         let mut err = [0.0; L];
         for l in 0..L {
-            let den = self.norm[l] * xnorm[l] + bnorm[l];
+            let norm = if transposed {
+                let w = self.omega[l].abs();
+                self.sys_norm_t
+                    .iter()
+                    .map(|&(g, c)| g + w * c)
+                    .fold(0.0, f64::max)
+            } else {
+                self.norm[l]
+            };
+            let den = norm * xnorm[l] + bnorm[l];
             err[l] = if num[l].is_nan() || den.is_nan() {
                 f64::INFINITY
             } else if den == 0.0 {
@@ -397,28 +471,42 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
 }
 
 impl<const N: usize, const L: usize> LaneLu<N, L> {
-    /// Solves every lane against `rhs` with the residual check of [`LaneSolver::solve_checked`].
+    /// Solves every lane against `rhs` with the residual check of [`LaneSolver::solve_checked`]:
+    /// the same right-hand side in every lane (broadcast), or, for the transposed systems,
+    /// each lane's own (lane-major).
     #[inline(always)]
     fn checked_lanes(
         &mut self,
         rhs: &[Complex64],
         out: &mut [Complex64],
+        transposed: bool,
     ) -> Result<(), LaneFailure> {
-        let b = LaneVec::<N, L>::broadcast(rhs);
+        let b = if transposed {
+            LaneVec::<N, L>::load(rhs, self.active)
+        } else {
+            LaneVec::<N, L>::broadcast(rhs)
+        };
         let (mut x, mut r, mut d) = (LaneVec::ZERO, LaneVec::ZERO, LaneVec::ZERO);
-        self.solve_lanes(&b, &mut x);
-        let mut err = self.backward_error(&b, &x, &mut r);
+        let solve = |lu: &Self, v: &LaneVec<N, L>, y: &mut LaneVec<N, L>| {
+            if transposed {
+                lu.solve_lanes_transposed(v, y)
+            } else {
+                lu.solve_lanes(v, y)
+            }
+        };
+        solve(self, &b, &mut x);
+        let mut err = self.backward_error(&b, &x, &mut r, transposed);
         let tol = RESIDUAL_LIMIT * 1e-3;
         if err.iter().take(self.active).any(|&e| e > tol) {
             // One step of refinement: d = x + A⁻¹·r, kept in the lanes that needed it.
-            self.solve_lanes(&r, &mut d);
+            solve(self, &r, &mut d);
             for i in 0..N {
                 for l in 0..L {
                     d.re[i][l] += x.re[i][l];
                     d.im[i][l] += x.im[i][l];
                 }
             }
-            let err2 = self.backward_error(&b, &d, &mut r);
+            let err2 = self.backward_error(&b, &d, &mut r, transposed);
             for l in 0..L {
                 if err[l] > tol {
                     for i in 0..N {
@@ -482,6 +570,14 @@ impl<const N: usize, const L: usize> LaneSolver for LaneLu<N, L> {
     fn derivative(&mut self, xs: &[Complex64], out: &mut [Complex64]) {
         kernel_derivative(self, xs, out)
     }
+
+    fn solve_transposed_checked(
+        &mut self,
+        rhs: &[Complex64],
+        out: &mut [Complex64],
+    ) -> Result<(), LaneFailure> {
+        kernel_solve_transposed(self, rhs, out)
+    }
 }
 
 // The stack kernel's entry points, compiled for the baseline and again for AVX2, picked at
@@ -504,7 +600,25 @@ fn kernel_solve<const N: usize, const L: usize>(
     rhs: &[Complex64],
     out: &mut [Complex64],
 ) -> Result<(), LaneFailure> {
-    lu.checked_lanes(rhs, out)
+    lu.checked_lanes(rhs, out, false)
+}
+
+#[multiversion(targets("x86_64+avx2+fma"))]
+fn kernel_solve_transposed<const N: usize, const L: usize>(
+    lu: &mut LaneLu<N, L>,
+    rhs: &[Complex64],
+    out: &mut [Complex64],
+) -> Result<(), LaneFailure> {
+    lu.checked_lanes(rhs, out, true)
+}
+
+#[multiversion(targets("x86_64+avx2+fma"))]
+fn kernel_solve_transposed_into<const N: usize, const L: usize>(
+    lu: &LaneLu<N, L>,
+    v: &LaneVec<N, L>,
+    y: &mut LaneVec<N, L>,
+) {
+    lu.solve_lanes_transposed(v, y)
 }
 
 #[multiversion(targets("x86_64+avx2+fma"))]
@@ -537,6 +651,16 @@ impl<const N: usize, const L: usize> PointSolver for LaneLu<N, L> {
         let v = LaneVec::<N, L>::broadcast(rhs);
         let mut y = LaneVec::ZERO;
         kernel_solve_into(self, &v, &mut y);
+        y.store(rhs, 1);
+    }
+
+    fn solve_transposed(&mut self, rhs: &mut [Complex64]) {
+        if rhs.len() != N {
+            return;
+        }
+        let v = LaneVec::<N, L>::broadcast(rhs);
+        let mut y = LaneVec::ZERO;
+        kernel_solve_transposed_into(self, &v, &mut y);
         y.store(rhs, 1);
     }
 }

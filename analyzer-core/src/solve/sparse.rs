@@ -47,6 +47,9 @@ impl<'a> SparseLu<'a> {
                 .symbolic
                 .factorize_numeric_lu_scratch::<c64>(Par::Seq, Default::default()),
             shared.symbolic.solve_in_place_scratch::<c64>(1, Par::Seq),
+            shared
+                .symbolic
+                .solve_transpose_in_place_scratch::<c64>(1, Par::Seq),
         ]);
         SparseLu {
             sys,
@@ -93,5 +96,17 @@ impl PointSolver for SparseLu<'_> {
             faer::sparse::linalg::lu::LuRef::new_unchecked(&self.shared.symbolic, &self.numeric);
         let b = MatMut::from_column_major_slice_mut(rhs, n, 1);
         lu.solve_in_place_with_conj(Conj::No, b, Par::Seq, stack);
+    }
+
+    fn solve_transposed(&mut self, rhs: &mut [Complex64]) {
+        let n = self.sys.n;
+        if !self.ok || rhs.len() != n {
+            return;
+        }
+        let stack = MemStack::new(&mut self.mem);
+        let lu =
+            faer::sparse::linalg::lu::LuRef::new_unchecked(&self.shared.symbolic, &self.numeric);
+        let b = MatMut::from_column_major_slice_mut(rhs, n, 1);
+        lu.solve_transpose_in_place_with_conj(Conj::No, b, Par::Seq, stack);
     }
 }
