@@ -9,7 +9,6 @@ mod report;
 use analyzer_core::design::{self, Design};
 use analyzer_core::export::{self, CsvStream, Polar};
 use analyzer_core::metrics::{self, MetricOptions, Trace};
-use analyzer_core::poles;
 use analyzer_core::response::{Analysis, AnalysisError, ResponseUnit};
 use analyzer_core::solve::SolverKind;
 use analyzer_core::sweep::{self, Chunk, SweepOptions};
@@ -110,6 +109,10 @@ struct SweepArgs {
     /// Skip the SVG plots.
     #[arg(long)]
     no_plot: bool,
+    /// For noise responses, also write RESPONSE-contributions.csv: each noise source's
+    /// density at every frequency of the sweep.
+    #[arg(long)]
+    contributions: bool,
     /// Solver path (default: chosen by size and structure: small up to 16 unknowns, band
     /// when the reordered matrix is narrow, sparse otherwise).
     #[arg(long, value_enum, default_value_t = SolverArg::Auto)]
@@ -493,15 +496,7 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
                 level_db: spec.level_db.or(args.level),
                 reference: spec.reference.or(cli_reference).unwrap_or_default(),
             };
-            // Poles and zeros scaled to the sweep's geometric centre.
-            let (lo, hi) = grid.bounds();
-            let lo = if lo > 0.0 { lo } else { hi * 1e-6 };
-            let omega_s = 2.0 * std::f64::consts::PI * (lo * hi).sqrt();
-            let (pz, note) = match poles::pole_zero(&analysis, i, Some(omega_s)) {
-                Ok(p) => (Some(p), None),
-                Err(e) => (None, Some(e.to_string())),
-            };
-            metrics::figures(&ev, &grid, &traces[i], i, &opts, pz.as_ref(), note)
+            metrics::response_figures(&ev, &grid, &traces[i], i, &opts)
         })
         .collect::<Result<Vec<_>, _>>()
         .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
@@ -536,10 +531,32 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
             }
         }
     }
+    // Noise: each source's density over the sweep, on request.
+    if !to_stdout && args.contributions {
+        for (i, spec) in specs.iter().enumerate() {
+            if let Some(plan) = ev.noise_plan(i) {
+                let path = out_dir.join(format!(
+                    "{}-contributions.csv",
+                    output::safe_file_name(&spec.name)
+                ));
+                let text = output::contributions_csv(&ev, i, plan, &grid)
+                    .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+                staging.bytes(&path, &text)?;
+            }
+        }
+    }
     if !to_stdout && !args.no_plot {
         let title = &analysis.network().title;
         for (i, spec) in specs.iter().enumerate() {
             let path = out_dir.join(format!("{}.svg", output::safe_file_name(&spec.name)));
+            if ev.noise_plan(i).is_some() {
+                let svg = output::noise_svg(title, &ev, i, &grid, &figures[i])
+                    .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+                if let Some(svg) = svg {
+                    staging.bytes(&path, svg.as_bytes())?;
+                }
+                continue;
+            }
             match output::svg(title, spec, &grid, &traces[i], &figures[i], !args.wrapped)? {
                 Some(svg) => staging.bytes(&path, svg.as_bytes())?,
                 None if !args.quiet => {

@@ -6,7 +6,8 @@
 use crate::Failure;
 use analyzer_core::export::{self, Marker, Panel, PlotInput};
 use analyzer_core::metrics::{Figures, Trace};
-use analyzer_core::response::{ResponseSpec, ResponseUnit};
+use analyzer_core::noise::{self, NoisePlan};
+use analyzer_core::response::{AnalysisError, Evaluator, ResponseSpec, ResponseUnit};
 use analyzer_core::sweep::Grid;
 use analyzer_core::units::format_eng;
 use std::io::{BufWriter, Write};
@@ -160,6 +161,7 @@ pub fn svg(
         ResponseUnit::Ratio => "magnitude (dB)".to_string(),
         ResponseUnit::Ohms => "magnitude (dB re 1 Ω)".to_string(),
         ResponseUnit::Siemens => "magnitude (dB re 1 S)".to_string(),
+        ResponseUnit::NoiseDensity => "noise density (dB re 1 V/√Hz)".to_string(),
     };
     let mut panels = vec![
         Panel {
@@ -249,4 +251,85 @@ pub fn svg(
     export::render_svg(&input)
         .map(Some)
         .map_err(|e| Failure::input(format!("response {}: {e}", spec.name)))
+}
+
+/// Each noise source's density at every frequency of the sweep (above 0 Hz), as CSV:
+/// `frequency_hz`, then one column per source named after it (`R1_v_per_rthz`).
+pub fn contributions_csv(
+    ev: &Evaluator<'_>,
+    index: usize,
+    plan: &NoisePlan,
+    grid: &Grid,
+) -> Result<Vec<u8>, AnalysisError> {
+    let freqs: Vec<f64> = grid.points().into_iter().filter(|f| *f > 0.0).collect();
+    let (_, cols) = noise::densities(ev, index, &freqs)?;
+    let mut names = vec!["frequency_hz".to_string()];
+    names.extend(
+        plan.sources
+            .iter()
+            .map(|s| format!("{}_v_per_rthz", s.name.replace(' ', "_"))),
+    );
+    let mut out = Vec::new();
+    // Writing into memory cannot fail.
+    let _ = export::write_columns_csv(&mut out, &names, &freqs, &cols);
+    Ok(out)
+}
+
+/// Frequencies for a plot: up to 400 log-spaced points over the sweep's range above 0 Hz.
+fn plot_freqs(grid: &Grid) -> Vec<f64> {
+    let pts: Vec<f64> = grid.points().into_iter().filter(|f| *f > 0.0).collect();
+    if pts.len() <= 400 {
+        return pts;
+    }
+    let (a, b) = (pts[0], pts[pts.len() - 1]);
+    (0..400)
+        .map(|k| a * (b / a).powf(k as f64 / 399.0))
+        .collect()
+}
+
+/// The noise plot of response `index`: its density and its five largest contributors; None
+/// when the sweep has no frequency above 0 Hz.
+pub fn noise_svg(
+    title: &str,
+    ev: &Evaluator<'_>,
+    index: usize,
+    grid: &Grid,
+    figures: &Figures,
+) -> Result<Option<String>, AnalysisError> {
+    let Some(plan) = ev.noise_plan(index) else {
+        return Ok(None);
+    };
+    let freqs = plot_freqs(grid);
+    if freqs.len() < 2 {
+        return Ok(None);
+    }
+    let (total, cols) = noise::densities(ev, index, &freqs)?;
+    let top: Vec<(String, Vec<(f64, f64)>)> = figures
+        .noise
+        .as_ref()
+        .map(|n| n.contributors.iter().take(5).collect::<Vec<_>>())
+        .unwrap_or_default()
+        .into_iter()
+        .filter_map(|(name, share)| {
+            let k = plan.sources.iter().position(|s| &s.name == name)?;
+            let pts = freqs.iter().copied().zip(cols[k].iter().copied()).collect();
+            Some((format!("{name} ({share:.1} %)"), pts))
+        })
+        .collect();
+    let spec = &ev.analysis().responses()[index];
+    let label = match &spec.kind {
+        analyzer_core::response::ResponseKind::Noise {
+            referred_to: Some(_),
+            ..
+        } => "noise referred to the input (V/√Hz)",
+        _ => "noise density (V/√Hz)",
+    };
+    let totals: Vec<(f64, f64)> = freqs.iter().copied().zip(total).collect();
+    let plot = export::NoisePlot {
+        title: format!("{title} — {}", spec.name),
+        label: label.into(),
+        total: &totals,
+        contributors: &top,
+    };
+    Ok(export::render_noise_svg(&plot).ok())
 }

@@ -84,7 +84,45 @@ pub fn table(
                 }
             }
             _ => {
-                if f.unit.is_empty() && f.margins.is_none() {
+                if let Some(n) = &f.noise {
+                    let referred = if f.unit.is_empty() { "" } else { " rms" };
+                    row(
+                        "integrated",
+                        format!(
+                            "{}{referred} over {} … {} (estimated error {:.0e})",
+                            format_eng(n.rms, 5, "V"),
+                            hz(n.band_hz.0),
+                            hz(n.band_hz.1),
+                            n.relative_error
+                        ),
+                    );
+                    row(
+                        "density",
+                        format!(
+                            "{}/√Hz at {}",
+                            format_eng(n.spot_density, 5, "V"),
+                            hz(n.spot_hz)
+                        ),
+                    );
+                    let top: Vec<String> = n
+                        .contributors
+                        .iter()
+                        .take(6)
+                        .map(|(name, share)| format!("{name} {share:.1} %"))
+                        .collect();
+                    if !top.is_empty() {
+                        row("contributors", top.join(", "));
+                    }
+                    if let (Some(nf), Some(spot)) = (n.noise_figure_db, n.spot_noise_figure_db) {
+                        row(
+                            "noise figure",
+                            format!(
+                                "{nf:.2} dB over the band, {spot:.2} dB at {} (IEEE: source at 290 K)",
+                                hz(n.spot_hz)
+                            ),
+                        );
+                    }
+                } else if f.unit.is_empty() && f.margins.is_none() {
                     row(
                         "reference",
                         "none: the response has no passband (give --reference to measure crossings)".into(),

@@ -39,17 +39,24 @@ fn every_example_design_sweeps_to_csv_and_svg() {
             let mut reader = csv::Reader::from_path(&csv_path).unwrap();
             let header: Vec<String> = reader.headers().unwrap().iter().map(String::from).collect();
             let suffix = r.kind.unit().column_suffix();
-            assert_eq!(
-                header,
+            let noise = r.kind.unit() == analyzer_core::response::ResponseUnit::NoiseDensity;
+            let expected: Vec<String> = if noise {
+                vec![
+                    "frequency_hz".into(),
+                    "density_v_per_rthz".into(),
+                    "density_db".into(),
+                ]
+            } else {
                 vec![
                     "frequency_hz".to_string(),
                     "magnitude_db".into(),
                     "phase_deg".into(),
                     format!("real{suffix}"),
                     format!("imag{suffix}"),
-                    "group_delay_s".into()
+                    "group_delay_s".into(),
                 ]
-            );
+            };
+            assert_eq!(header, expected);
             let rows: Vec<csv::StringRecord> = reader.records().map(Result::unwrap).collect();
             assert_eq!(rows.len(), points, "{}", csv_path.display());
             for row in &rows {
@@ -65,6 +72,10 @@ fn every_example_design_sweeps_to_csv_and_svg() {
                 .filter_map(|n| n.text())
                 .map(str::trim)
                 .collect();
+            if noise {
+                assert!(texts.iter().any(|t| t.contains("(V/√Hz)")), "{}", r.name);
+                continue;
+            }
             assert!(
                 texts.iter().any(|t| t.starts_with("magnitude (dB")),
                 "{}",

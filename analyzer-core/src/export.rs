@@ -118,6 +118,8 @@ pub struct Columns<'a> {
 #[derive(Clone, Debug)]
 pub struct CsvStream {
     unwrap: Vec<bool>,
+    /// Per response, whether it is a noise density (its columns are density and dB).
+    noise: Vec<bool>,
     /// Text of each block of the current chunk, reused from chunk to chunk.
     blocks: Vec<Vec<u8>>,
 }
@@ -139,6 +141,11 @@ impl CsvStream {
                 String::new()
             };
             let s = unit.column_suffix();
+            if unit == ResponseUnit::NoiseDensity {
+                names.push(format!("{p}density{s}"));
+                names.push(format!("{p}density_db"));
+                continue;
+            }
             names.push(format!("{p}magnitude_db"));
             names.push(format!("{p}phase_deg"));
             names.push(format!("{p}real{s}"));
@@ -155,6 +162,10 @@ impl CsvStream {
         )?;
         Ok(CsvStream {
             unwrap: cols.iter().map(|c| c.3).collect(),
+            noise: cols
+                .iter()
+                .map(|c| c.1 == ResponseUnit::NoiseDensity)
+                .collect(),
             blocks: Vec::new(),
         })
     }
@@ -171,13 +182,19 @@ impl CsvStream {
     ) -> io::Result<()> {
         let n = freqs.len();
         // Per response: values, magnitude, the phase shown, delay.
-        type Cols<'c> = (&'c [Complex64], &'c [f64], &'c [f64], Option<&'c [f64]>);
+        type Cols<'c> = (
+            &'c [Complex64],
+            &'c [f64],
+            &'c [f64],
+            Option<&'c [f64]>,
+            bool,
+        );
         let cols: Vec<Cols<'_>> = values
             .iter()
             .zip(polar)
             .zip(delays)
-            .zip(&self.unwrap)
-            .map(|(((v, p), d), &u)| (*v, p.db.as_slice(), p.phase_deg(u), *d))
+            .zip(self.unwrap.iter().zip(&self.noise))
+            .map(|(((v, p), d), (&u, &noise))| (*v, p.db.as_slice(), p.phase_deg(u), *d, noise))
             .collect();
         self.blocks.resize_with(n.div_ceil(BLOCK), Vec::new);
         self.blocks.par_iter_mut().enumerate().for_each(|(b, buf)| {
@@ -187,7 +204,14 @@ impl CsvStream {
             let mut r = zmij::Buffer::new();
             for k in rows {
                 buf.extend_from_slice(r.format(freqs[k]).as_bytes());
-                for &(v, db, ph, d) in &cols {
+                for &(v, db, ph, d, noise) in &cols {
+                    if noise {
+                        for x in [v[k].re, db[k]] {
+                            buf.push(b',');
+                            buf.extend_from_slice(r.format(x).as_bytes());
+                        }
+                        continue;
+                    }
                     for x in [db[k], ph[k], v[k].re, v[k].im] {
                         buf.push(b',');
                         buf.extend_from_slice(r.format(x).as_bytes());
@@ -222,6 +246,30 @@ pub fn write_csv<W: Write>(out: &mut W, freqs: &[f64], cols: &[Columns<'_>]) -> 
     let polar: Vec<&Polar> = polar.iter().collect();
     let delays: Vec<Option<&[f64]>> = cols.iter().map(|c| c.delay).collect();
     stream.rows(out, freqs, &values, &polar, &delays)
+}
+
+/// Writes a CSV of columns over `freqs`: the header `names` (the first is the frequency's),
+/// then one row per frequency with each column's value, numbers in their shortest exact form.
+pub fn write_columns_csv<W: Write>(
+    out: &mut W,
+    names: &[String],
+    freqs: &[f64],
+    cols: &[Vec<f64>],
+) -> io::Result<()> {
+    let mut w = csv::Writer::from_writer(out);
+    w.write_record(names).map_err(io::Error::other)?;
+    let mut z = zmij::Buffer::new();
+    let mut row: Vec<String> = Vec::with_capacity(cols.len() + 1);
+    for (k, f) in freqs.iter().enumerate() {
+        row.clear();
+        row.push(z.format(*f).to_string());
+        row.extend(
+            cols.iter()
+                .map(|c| z.format(c.get(k).copied().unwrap_or(f64::NAN)).to_string()),
+        );
+        w.write_record(&row).map_err(io::Error::other)?;
+    }
+    w.flush()
 }
 
 /// A labelled point to mark on a plot.
@@ -459,6 +507,120 @@ pub fn render_svg(input: &PlotInput<'_>) -> Result<String, PlotError> {
                 chart.draw_series(std::iter::once(mark)).map_err(perr)?;
             }
         }
+        root.present().map_err(perr)?;
+    }
+    Ok(svg)
+}
+
+/// A noise plot: the total density and the largest contributors on log-log axes.
+#[derive(Clone, Debug)]
+pub struct NoisePlot<'a> {
+    /// Title line.
+    pub title: String,
+    /// Axis label of the density, with its unit (V/√Hz, or referred).
+    pub label: String,
+    /// (frequency, total density) ascending.
+    pub total: &'a [(f64, f64)],
+    /// (name, (frequency, density) points), largest first.
+    pub contributors: &'a [(String, Vec<(f64, f64)>)],
+}
+
+/// Colours of the contributor traces (distinct on white and in greyscale steps).
+const CONTRIBUTOR_COLOURS: [RGBColor; 5] = [
+    RGBColor(0xb3, 0x3c, 0x1a),
+    RGBColor(0x3a, 0x6e, 0xa5),
+    RGBColor(0xc9, 0x8b, 0x1a),
+    RGBColor(0x6b, 0x4c, 0x9a),
+    RGBColor(0x5f, 0x7f, 0x3a),
+];
+
+/// Renders a noise plot into an SVG string: density on a log axis against log frequency,
+/// the total bold, each contributor thin with its name in a legend.
+pub fn render_noise_svg(input: &NoisePlot<'_>) -> Result<String, PlotError> {
+    let pts = input.total;
+    let (f0, f1) = (
+        pts.first().map_or(1.0, |p| p.0),
+        pts.last().map_or(10.0, |p| p.0),
+    );
+    let positive = |v: f64| v > 0.0 && v.is_finite();
+    let ys = pts
+        .iter()
+        .map(|p| p.1)
+        .chain(
+            input
+                .contributors
+                .iter()
+                .flat_map(|c| c.1.iter().map(|p| p.1)),
+        )
+        .filter(|v| positive(*v));
+    let (lo, hi) = ys.fold((f64::INFINITY, 0.0f64), |(a, b), v| (a.min(v), b.max(v)));
+    if !(positive(f0) && f1 > f0 && positive(lo) && hi >= lo) {
+        return Err(PlotError(
+            "a noise plot needs positive densities over frequencies above 0 Hz".into(),
+        ));
+    }
+    // Three decades below the total's top at most: smaller contributors go off the bottom.
+    let top = pts.iter().map(|p| p.1).fold(0.0, f64::max);
+    let (y0, y1) = ((top / 1e3).max(lo) / 1.5, hi * 1.5);
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, (960, 520)).into_drawing_area();
+        root.fill(&WHITE).map_err(perr)?;
+        let (head, body) = root.split_vertically(44);
+        head.draw(&Text::new(
+            input.title.clone(),
+            (16, 14),
+            ("sans-serif", 20).into_font().color(&INK),
+        ))
+        .map_err(perr)?;
+        let mut chart = ChartBuilder::on(&body)
+            .margin_left(12)
+            .margin_right(24)
+            .margin_top(6)
+            .margin_bottom(6)
+            .x_label_area_size(40)
+            .y_label_area_size(90)
+            .build_cartesian_2d((f0..f1).log_scale(), (y0..y1).log_scale())
+            .map_err(perr)?;
+        chart
+            .configure_mesh()
+            .y_desc(input.label.clone())
+            .x_desc("frequency (Hz)")
+            .light_line_style(MINOR)
+            .bold_line_style(DECADE)
+            .axis_style(INK)
+            .label_style(("sans-serif", 13).into_font().color(&INK))
+            .x_label_formatter(&|f| tidy_label(format_eng(*f, 3, "Hz")))
+            .y_label_formatter(&|v| tidy_label(format_eng(*v, 3, "V")))
+            .draw()
+            .map_err(perr)?;
+        for (k, (name, c)) in input.contributors.iter().enumerate().take(5) {
+            let colour = CONTRIBUTOR_COLOURS[k % CONTRIBUTOR_COLOURS.len()];
+            chart
+                .draw_series(LineSeries::new(
+                    c.iter().copied().filter(|p| positive(p.1)),
+                    colour.stroke_width(1),
+                ))
+                .map_err(perr)?
+                .label(name.clone())
+                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], colour));
+        }
+        chart
+            .draw_series(LineSeries::new(
+                pts.iter().copied().filter(|p| positive(p.1)),
+                TRACE.stroke_width(3),
+            ))
+            .map_err(perr)?
+            .label("total")
+            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], TRACE.stroke_width(3)));
+        chart
+            .configure_series_labels()
+            .background_style(WHITE.mix(0.85))
+            .border_style(MINOR)
+            .label_font(("sans-serif", 12).into_font().color(&INK))
+            .position(SeriesLabelPosition::UpperRight)
+            .draw()
+            .map_err(perr)?;
         root.present().map_err(perr)?;
     }
     Ok(svg)

@@ -56,6 +56,7 @@ pub mod ladders;
 pub mod metrics;
 pub mod names;
 pub mod network;
+pub mod noise;
 pub mod poles;
 pub mod response;
 pub mod solve;

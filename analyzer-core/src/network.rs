@@ -234,6 +234,23 @@ pub struct Part {
     pub kind: PartKind,
     /// Manufacturing tolerance as a fraction (0.01 for 1 %), where given.
     pub tolerance: Option<f64>,
+    /// An op-amp's input noise, where given.
+    pub noise: Option<OpampNoise>,
+}
+
+/// The input noise of an op-amp: a voltage density in series with the non-inverting input
+/// and a current density from each input to ground, each white above its 1/f corner
+/// (density² = white² · (1 + corner/f)). The sources are uncorrelated.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct OpampNoise {
+    /// Input voltage noise density above the corner (V/√Hz).
+    pub voltage: f64,
+    /// 1/f corner of the voltage noise (Hz; 0 for none).
+    pub voltage_corner: f64,
+    /// Input current noise density above the corner (A/√Hz), at each input.
+    pub current: f64,
+    /// 1/f corner of the current noise (Hz; 0 for none).
+    pub current_corner: f64,
 }
 
 impl Part {
@@ -321,6 +338,8 @@ fn polar(z: Complex64, unit: &str) -> String {
 pub struct Network {
     /// Design title.
     pub title: String,
+    /// Temperature of every part (K), for thermal noise.
+    pub temperature: f64,
     nodes: Vec<String>,
     parts: Vec<Part>,
     node_index: NameIndex,
@@ -460,6 +479,12 @@ pub enum NetworkError {
         /// Part name.
         part: String,
     },
+    /// A temperature that is not a positive number of kelvin below 10,000 K.
+    #[error("temperature {kelvin} K is not a temperature the parts could have; give it in K or °C, e.g. \"300 K\" or \"27 °C\"")]
+    BadTemperature {
+        /// The value given (K).
+        kelvin: f64,
+    },
     /// Limits on size.
     #[error("the network has more than {limit} {what}")]
     TooLarge {
@@ -483,10 +508,15 @@ impl NetworkError {
             | NetworkError::BadCoupling { part, .. }
             | NetworkError::ShortedPart { part, .. }
             | NetworkError::GroundedOutput { part } => Some(part),
-            NetworkError::BadName { .. } | NetworkError::TooLarge { .. } => None,
+            NetworkError::BadName { .. }
+            | NetworkError::TooLarge { .. }
+            | NetworkError::BadTemperature { .. } => None,
         }
     }
 }
+
+/// The temperature of a network's parts unless a design sets one (K): 300 K, about 27 °C.
+pub const DEFAULT_TEMPERATURE: f64 = 300.0;
 
 /// Largest number of parts a network may have (memory safety against absurd inputs).
 pub const MAX_PARTS: usize = 20_000_000;
@@ -528,6 +558,7 @@ enum Pending {
 #[derive(Clone, Debug)]
 pub struct NetworkBuilder {
     title: String,
+    temperature: f64,
     nodes: Vec<String>,
     node_index: NameIndex,
     /// Parts in order; a part whose references are resolved by `build` holds a stand-in
@@ -574,6 +605,7 @@ impl NetworkBuilder {
         node_index.insert(GROUND_NAME, 0, |_| GROUND_NAME);
         NetworkBuilder {
             title: title.into(),
+            temperature: DEFAULT_TEMPERATURE,
             nodes,
             node_index,
             parts: Vec::new(),
@@ -672,6 +704,7 @@ impl NetworkBuilder {
                 k: 0.0,
             }),
             tolerance: None,
+            noise: None,
         });
         let parts = &self.parts;
         self.part_index.insert(name, index as u32, |p| {
@@ -689,6 +722,59 @@ impl NetworkBuilder {
             });
         }
         Ok((na, nb))
+    }
+
+    /// Sets the temperature of every part (K), for thermal noise.
+    pub fn temperature(&mut self, kelvin: f64) -> Result<(), NetworkError> {
+        if !(kelvin.is_finite() && kelvin > 0.0 && kelvin < 1e4) {
+            return Err(NetworkError::BadTemperature { kelvin });
+        }
+        self.temperature = kelvin;
+        Ok(())
+    }
+
+    /// Sets the input noise of op-amp `name` (every density ≥ 0 and finite, corners ≥ 0).
+    pub fn opamp_noise(&mut self, name: &str, noise: OpampNoise) -> Result<(), NetworkError> {
+        for (what, v) in [
+            ("noise voltage", noise.voltage),
+            ("noise voltage corner", noise.voltage_corner),
+            ("noise current", noise.current),
+            ("noise current corner", noise.current_corner),
+        ] {
+            if !(v.is_finite() && v >= 0.0) {
+                return Err(NetworkError::OutOfRange {
+                    part: name.to_string(),
+                    what,
+                    value: v,
+                });
+            }
+            check_range(name, what, v)?;
+        }
+        let Some(i) = self.find_part(name) else {
+            return Err(NetworkError::MissingPart {
+                part: name.to_string(),
+                role: "noise of",
+                target: name.to_string(),
+            });
+        };
+        match self.parts.get_mut(i) {
+            Some(p)
+                if matches!(
+                    p.kind,
+                    PartKind::IdealOpamp { .. } | PartKind::SinglePoleOpamp { .. }
+                ) =>
+            {
+                p.noise = Some(noise);
+                Ok(())
+            }
+            _ => Err(NetworkError::WrongKind {
+                part: name.to_string(),
+                role: "noise of",
+                target: name.to_string(),
+                found: "part",
+                expected: "an op-amp",
+            }),
+        }
     }
 
     /// Sets the tolerance (a fraction) of the part added last under `name`.
@@ -1003,6 +1089,7 @@ impl NetworkBuilder {
         })?;
         Ok(Network {
             title: this.title,
+            temperature: this.temperature,
             nodes: this.nodes,
             parts: this.parts,
             node_index: this.node_index,

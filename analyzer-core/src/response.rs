@@ -13,6 +13,7 @@
 //! `τ = −Im(H′/H)` (see [`Point::group_delay`]).
 
 use crate::network::{Network, NodeId, PartId, PartKind};
+use crate::noise::{Breakdown, NoisePlan};
 use crate::solve::{LaneSolver, SolveFailure, SolverKind, SolverPlan, LANES};
 use crate::stamp::{Readout, System};
 use crate::topology::{self, TopologyError};
@@ -49,6 +50,19 @@ pub enum ResponseKind {
     Impedance(NodeId, NodeId),
     /// Driving-point admittance between two nodes, sources off.
     Admittance(NodeId, NodeId),
+    /// The noise density of the voltage between two nodes (see [`crate::noise`]), referred
+    /// to the ratio response `referred_to` (an index into the responses) when given, with a
+    /// source resistor `source` for the noise figure.
+    Noise {
+        /// Positive node of the output.
+        plus: NodeId,
+        /// Negative node of the output (gnd for a node voltage).
+        minus: NodeId,
+        /// The ratio response the density is divided by.
+        referred_to: Option<usize>,
+        /// The resistor that stands for the signal source's resistance.
+        source: Option<PartId>,
+    },
 }
 
 /// A named response.
@@ -65,6 +79,9 @@ pub struct ResponseSpec {
     pub level_db: Option<f64>,
     /// What this response's level is measured from, where the design sets it.
     pub reference: Option<crate::metrics::Reference>,
+    /// The band a noise response is integrated over (Hz), where the design sets one; the
+    /// sweep's range otherwise.
+    pub band: Option<(f64, f64)>,
 }
 
 impl ResponseSpec {
@@ -76,6 +93,7 @@ impl ResponseSpec {
             loop_gain: false,
             level_db: None,
             reference: None,
+            band: None,
         }
     }
 }
@@ -89,6 +107,8 @@ pub enum ResponseUnit {
     Ohms,
     /// A/V.
     Siemens,
+    /// A noise density, V/√Hz (at the output, or referred to the input of a V/V gain).
+    NoiseDensity,
 }
 
 impl ResponseUnit {
@@ -98,6 +118,7 @@ impl ResponseUnit {
             ResponseUnit::Ratio => "",
             ResponseUnit::Ohms => "Ω",
             ResponseUnit::Siemens => "S",
+            ResponseUnit::NoiseDensity => "V/√Hz",
         }
     }
     /// ASCII suffix for CSV column names ("" for a plain ratio).
@@ -106,6 +127,7 @@ impl ResponseUnit {
             ResponseUnit::Ratio => "",
             ResponseUnit::Ohms => "_ohm",
             ResponseUnit::Siemens => "_siemens",
+            ResponseUnit::NoiseDensity => "_v_per_rthz",
         }
     }
 }
@@ -116,6 +138,7 @@ impl ResponseKind {
         match self {
             ResponseKind::Impedance(..) => ResponseUnit::Ohms,
             ResponseKind::Admittance(..) => ResponseUnit::Siemens,
+            ResponseKind::Noise { .. } => ResponseUnit::NoiseDensity,
             ResponseKind::Ratio {
                 numerator,
                 denominator,
@@ -161,6 +184,15 @@ pub enum AnalysisError {
         /// Residual reached.
         residual: f64,
     },
+    /// A noise density that cannot be evaluated: 0 Hz below a 1/f corner, or referred to a
+    /// gain that is zero there.
+    #[error("response {response:?}: the noise has no finite value at {} (a 1/f corner at 0 Hz, or a zero gain to refer it to); start the sweep above 0 Hz or refer it to another response", format_eng(*.frequency, 5, "Hz"))]
+    NoiseUndefined {
+        /// Response name.
+        response: String,
+        /// Frequency in Hz.
+        frequency: Hertz,
+    },
     /// A ratio's denominator is zero.
     #[error("response {response:?}: the denominator is zero at {}, so the ratio has no value there", format_eng(*.frequency, 5, "Hz"))]
     ZeroDenominator {
@@ -200,6 +232,8 @@ struct Resolved {
     numerator: Readout,
     denominator: Option<Readout>,
     invert: bool,
+    /// A noise response: computed by a transposed solve instead (`excitation` unused).
+    noise: Option<Box<NoisePlan>>,
 }
 
 /// How one response is read out of the system (see [`Analysis::readout`]):
@@ -286,6 +320,7 @@ impl Analysis {
                         numerator: readout(numerator)?,
                         denominator: Some(readout(denominator)?),
                         invert: false,
+                        noise: None,
                     }
                 }
                 ResponseKind::Impedance(a, b) | ResponseKind::Admittance(a, b) => {
@@ -316,6 +351,7 @@ impl Analysis {
                                 numerator: System::voltage_readout(*a, *b),
                                 denominator: Some(den),
                                 invert,
+                                noise: None,
                             }
                         }
                         None => Resolved {
@@ -323,7 +359,48 @@ impl Analysis {
                             numerator: System::voltage_readout(*a, *b),
                             denominator: None,
                             invert,
+                            noise: None,
                         },
+                    }
+                }
+                ResponseKind::Noise {
+                    plus,
+                    minus,
+                    referred_to,
+                    source,
+                } => {
+                    if plus == minus {
+                        return Err(bad("the two nodes are the same".into()));
+                    }
+                    if let Some(r) = referred_to {
+                        let ok = specs.get(*r).is_some_and(|t| {
+                            matches!(t.kind, ResponseKind::Ratio { .. })
+                                && t.kind.unit() == ResponseUnit::Ratio
+                        });
+                        if !ok {
+                            return Err(bad(
+                                "noise can be referred to a voltage or current ratio only".into(),
+                            ));
+                        }
+                    }
+                    if let Some(p) = source {
+                        if !matches!(
+                            net.part(*p).map(|x| &x.kind),
+                            Some(PartKind::Resistor { .. })
+                        ) {
+                            return Err(bad(
+                                "the noise figure's source must be a resistor (the signal source's resistance)".into(),
+                            ));
+                        }
+                    }
+                    let q = System::voltage_readout(*plus, *minus);
+                    let plan = NoisePlan::new(&net, &sys, &q, *referred_to, *source);
+                    Resolved {
+                        excitation: usize::MAX,
+                        numerator: q,
+                        denominator: None,
+                        invert: false,
+                        noise: Some(Box::new(plan)),
                     }
                 }
             };
@@ -377,7 +454,7 @@ impl Analysis {
     /// current), whether the value is inverted (an admittance), and whether the excitation
     /// is the design's own sources (so read-out constants apply).
     pub fn readout(&self, index: usize) -> Option<ResponseReadout<'_>> {
-        let r = self.resolved.get(index)?;
+        let r = self.resolved.get(index).filter(|r| r.noise.is_none())?;
         Some(ResponseReadout {
             rhs: self.rhs.get(r.excitation)?,
             numerator: &r.numerator,
@@ -422,6 +499,8 @@ pub struct Workspace<'a> {
     points: Vec<Point>,
     /// Groups the wide solver failed on, so they were evaluated one frequency at a time.
     regrouped: usize,
+    noise_rhs: Vec<Complex64>,
+    ys: Vec<Complex64>,
 }
 
 /// The solver and buffers one group of frequencies is evaluated with.
@@ -429,6 +508,9 @@ struct Group<'w, 'a> {
     solver: &'w mut (dyn LaneSolver + 'a),
     xs: &'w mut [Vec<Complex64>],
     dxs: &'w mut [Vec<Complex64>],
+    /// Noise: the output read-out in every lane, and the adjoint solutions.
+    noise_rhs: &'w mut Vec<Complex64>,
+    ys: &'w mut Vec<Complex64>,
 }
 
 impl<'a> Evaluator<'a> {
@@ -459,6 +541,8 @@ impl<'a> Evaluator<'a> {
             dxs: vec![vec![Complex64::default(); a.sys.n * lanes]; a.rhs.len()],
             points: vec![Point::default(); a.specs.len()],
             regrouped: 0,
+            noise_rhs: Vec::new(),
+            ys: Vec::new(),
         }
     }
 
@@ -488,6 +572,8 @@ impl<'a> Evaluator<'a> {
             solver: ws.one.as_mut(),
             xs: &mut ws.xs,
             dxs: &mut ws.dxs,
+            noise_rhs: &mut ws.noise_rhs,
+            ys: &mut ws.ys,
         };
         self.eval_group(&mut group, &[f], derivatives, &mut ws.points)?;
         Ok(&ws.points)
@@ -516,6 +602,8 @@ impl<'a> Evaluator<'a> {
                         solver: wide.as_mut(),
                         xs: &mut ws.xs,
                         dxs: &mut ws.dxs,
+                        noise_rhs: &mut ws.noise_rhs,
+                        ys: &mut ws.ys,
                     };
                     if self.eval_group(&mut group, fs, derivatives, out).is_ok() {
                         continue;
@@ -529,6 +617,8 @@ impl<'a> Evaluator<'a> {
                     solver: ws.one.as_mut(),
                     xs: &mut ws.xs,
                     dxs: &mut ws.dxs,
+                    noise_rhs: &mut ws.noise_rhs,
+                    ys: &mut ws.ys,
                 };
                 let slot = out.get_mut(k * nr..(k + 1) * nr).unwrap_or_default();
                 self.eval_group(&mut group, &[f], derivatives, slot)?;
@@ -568,6 +658,13 @@ impl<'a> Evaluator<'a> {
                 hint,
             }
         };
+        let lane_error = |e: crate::solve::LaneFailure| match e.failure {
+            SolveFailure::Singular(s) => singular(e.lane, s.column, false),
+            SolveFailure::Untrustworthy { residual } => AnalysisError::Untrustworthy {
+                frequency: freq(e.lane),
+                residual,
+            },
+        };
         g.solver.factor(omegas).map_err(|e| match e.failure {
             SolveFailure::Singular(s) => singular(e.lane, s.column, true),
             SolveFailure::Untrustworthy { residual } => AnalysisError::Untrustworthy {
@@ -579,15 +676,7 @@ impl<'a> Evaluator<'a> {
             let (Some(x), Some(dx)) = (g.xs.get_mut(e), g.dxs.get_mut(e)) else {
                 continue;
             };
-            g.solver
-                .solve_checked(rhs, x)
-                .map_err(|e| match e.failure {
-                    SolveFailure::Singular(s) => singular(e.lane, s.column, false),
-                    SolveFailure::Untrustworthy { residual } => AnalysisError::Untrustworthy {
-                        frequency: freq(e.lane),
-                        residual,
-                    },
-                })?;
+            g.solver.solve_checked(rhs, x).map_err(lane_error)?;
             if derivatives {
                 g.solver.derivative(x, dx);
             }
@@ -596,6 +685,9 @@ impl<'a> Evaluator<'a> {
         for (lane, (&omega, slot)) in omegas.iter().zip(out.chunks_mut(nr.max(1))).enumerate() {
             let span = lane * n..(lane + 1) * n;
             for ((k, r), point) in a.resolved.iter().enumerate().zip(slot.iter_mut()) {
+                if r.noise.is_some() {
+                    continue;
+                }
                 let x = g.xs[r.excitation].get(span.clone()).unwrap_or_default();
                 let dx = g.dxs[r.excitation].get(span.clone()).unwrap_or_default();
                 let design = a.excitations[r.excitation] == Excitation::Design;
@@ -607,7 +699,100 @@ impl<'a> Evaluator<'a> {
                 })?;
             }
         }
+        // Noise responses: one transposed solve per response and lane gives the transfer
+        // from every source.
+        for (k, r) in a.resolved.iter().enumerate() {
+            let Some(plan) = r.noise.as_deref() else {
+                continue;
+            };
+            let count = omegas.len();
+            g.noise_rhs.clear();
+            for _ in 0..count {
+                g.noise_rhs.extend_from_slice(&plan.output);
+            }
+            g.ys.resize(n * count, Complex64::default());
+            g.solver
+                .solve_transposed_checked(g.noise_rhs, g.ys)
+                .map_err(lane_error)?;
+            for lane in 0..count {
+                let f = freq(lane);
+                let scale = match plan.referred_to {
+                    Some(j) => out.get(lane * nr + j).map_or(f64::NAN, |p| p.value.norm()),
+                    None => 1.0,
+                };
+                let y = g.ys.get(lane * n..(lane + 1) * n).unwrap_or_default();
+                let total = plan.total(f, y, scale);
+                if scale == 0.0 || !total.is_finite() {
+                    return Err(AnalysisError::NoiseUndefined {
+                        response: a.specs[k].name.clone(),
+                        frequency: f,
+                    });
+                }
+                if let Some(p) = out.get_mut(lane * nr + k) {
+                    *p = Point {
+                        value: Complex64::new(total.sqrt(), 0.0),
+                        derivative: Complex64::default(),
+                    };
+                }
+            }
+        }
         Ok(())
+    }
+
+    /// The noise of response `index` at `f`, source by source (power spectral densities,
+    /// V²/Hz at the output, or referred as the response is). Fails as [`Evaluator::at`]
+    /// does, or when `index` is not a noise response.
+    pub fn noise_at(
+        &self,
+        ws: &mut Workspace<'a>,
+        f: Hertz,
+        index: usize,
+    ) -> Result<Breakdown, AnalysisError> {
+        let a = self.analysis;
+        let not_noise = || AnalysisError::BadResponse {
+            response: a
+                .specs
+                .get(index)
+                .map_or_else(String::new, |s| s.name.clone()),
+            reason: "is not a noise response".into(),
+        };
+        let plan = a
+            .resolved
+            .get(index)
+            .and_then(|r| r.noise.as_deref())
+            .ok_or_else(not_noise)?;
+        // Every response at f (the referred-to gain among them), which leaves the one-lane
+        // solver factored at f.
+        let scale = {
+            let pts = self.at(ws, f, false)?;
+            match plan.referred_to {
+                Some(j) => pts.get(j).map_or(f64::NAN, |p| p.value.norm()),
+                None => 1.0,
+            }
+        };
+        let n = a.sys.n;
+        ws.ys.resize(n, Complex64::default());
+        ws.one
+            .solve_transposed_checked(&plan.output, &mut ws.ys)
+            .map_err(|e| match e.failure {
+                SolveFailure::Singular(_) | SolveFailure::Untrustworthy { .. } => {
+                    AnalysisError::Untrustworthy {
+                        frequency: f,
+                        residual: f64::INFINITY,
+                    }
+                }
+            })?;
+        let mut parts = Vec::with_capacity(plan.sources.len());
+        let total = plan.contributions(f, &ws.ys, scale, &mut parts);
+        Ok(Breakdown { total, parts })
+    }
+
+    /// The noise plan of response `index`, if it is a noise response.
+    pub fn noise_plan(&self, index: usize) -> Option<&'a NoisePlan> {
+        self.analysis
+            .resolved
+            .get(index)
+            .and_then(|r| r.noise.as_deref())
     }
 }
 

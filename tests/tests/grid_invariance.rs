@@ -117,6 +117,14 @@ fn same(a: &Figures, b: &Figures, ctx: &str) {
         _ => panic!("{ctx}: margins"),
     }
     assert_eq!(a.poles, b.poles, "{ctx}: poles");
+    match (&a.noise, &b.noise) {
+        (Some(x), Some(y)) => {
+            close(x.rms, y.rms, 1e-9, "integrated noise", ctx);
+            close(x.spot_density, y.spot_density, 1e-12, "spot noise", ctx);
+        }
+        (None, None) => {}
+        _ => panic!("{ctx}: noise"),
+    }
 }
 
 /// The grids: log at 10, 100, 1,000, 20,000 per decade and a 4-point list, all from `lo`

@@ -244,6 +244,19 @@ const KINDS: &[&str] = &[
     "coupling",
 ];
 
+/// The keys an op-amp takes besides its kind.
+const OPAMP_KEYS: &[&str] = &[
+    "noninverting",
+    "inverting",
+    "output",
+    "dc_gain",
+    "gbw",
+    "noise_voltage",
+    "noise_voltage_corner",
+    "noise_current",
+    "noise_current_corner",
+];
+
 const PART_KEYS: &[&str] = &[
     "between",
     "control",
@@ -255,9 +268,21 @@ const PART_KEYS: &[&str] = &[
     "output",
     "dc_gain",
     "gbw",
+    "noise_voltage",
+    "noise_voltage_corner",
+    "noise_current",
+    "noise_current_corner",
 ];
 
-const TOP_KEYS: &[&str] = &["title", "caution", "sweep", "parts", "responses", "limits"];
+const TOP_KEYS: &[&str] = &[
+    "title",
+    "caution",
+    "temperature",
+    "sweep",
+    "parts",
+    "responses",
+    "limits",
+];
 const SWEEP_KEYS: &[&str] = &["from", "to", "per_decade", "points", "at"];
 const RESPONSE_KEYS: &[&str] = &[
     "ratio",
@@ -266,6 +291,10 @@ const RESPONSE_KEYS: &[&str] = &[
     "loop_gain",
     "level_db",
     "reference",
+    "noise",
+    "referred_to",
+    "source",
+    "band",
 ];
 const LIMIT_KEYS: &[&str] = &["response", "from", "to", "min_db", "max_db"];
 
@@ -451,6 +480,13 @@ pub fn parse(text: &str) -> Result<Design, DesignError> {
         Some(v) => boolean(&pos, v, "caution")?,
         None => false,
     };
+    if let Some(v) = top.value("temperature") {
+        let k = temperature(&pos, v)?;
+        reader
+            .builder
+            .temperature(k)
+            .map_err(|e| pos.err(v.span(), e.to_string()))?;
+    }
     let parts = top.value("parts").ok_or_else(|| {
         pos.err(
             0..0,
@@ -489,11 +525,43 @@ pub fn parse(text: &str) -> Result<Design, DesignError> {
         None => SweepSpec::default(),
     };
 
-    let mut responses = Vec::new();
+    let mut responses: Vec<ResponseSpec> = Vec::new();
+    // Noise responses referred to another response, resolved once all are read.
+    let mut referred: Vec<(usize, String, Range<usize>)> = Vec::new();
     if let Some(rs) = top.value("responses") {
         for (key, value) in table(&pos, rs, || "[responses]".into())?.entries() {
             let entry = table(&pos, value, || format!("response {}", key.text))?;
+            if let Some(v) = Fields::of(entry, RESPONSE_KEYS, &pos, unknown_key(RESPONSE_KEYS))?
+                .value("referred_to")
+            {
+                let target = string(&pos, v, &format!("response {}: referred_to", key.text))?;
+                referred.push((responses.len(), target, v.span()));
+            }
             responses.push(read_response(&pos, &network, &key.text, entry)?);
+        }
+    }
+    for (i, target, span) in referred {
+        let name = responses[i].name.clone();
+        let Some(j) = responses.iter().position(|r| r.name == target) else {
+            let known: Vec<&str> = responses.iter().map(|x| x.name.as_str()).collect();
+            return Err(pos.err(
+                span,
+                format!(
+                    "response {name} is referred to {target:?}, which the design does not define (it has: {})",
+                    known.join(", ")
+                ),
+            ));
+        };
+        if !matches!(responses[j].kind, ResponseKind::Ratio { .. })
+            || responses[j].kind.unit() != crate::response::ResponseUnit::Ratio
+        {
+            return Err(pos.err(
+                span,
+                format!("response {name} is referred to {target:?}, which is not a voltage or current ratio; noise is referred to a gain"),
+            ));
+        }
+        if let ResponseKind::Noise { referred_to, .. } = &mut responses[i].kind {
+            *referred_to = Some(j);
         }
     }
     if responses.is_empty() {
@@ -666,6 +734,65 @@ impl<'s> tree::Consumer<'s> for PartsReader<'_, '_> {
     }
 }
 
+/// A noise density such as `"4 nV"`, `"4 nV/√Hz"` or `"0.5 pA/rtHz"` (the per-root-hertz
+/// is implied and may be written).
+fn noise_density(
+    pos: &Positions<'_>,
+    v: Value<'_, '_>,
+    q: Quantity,
+    what: &dyn std::fmt::Display,
+) -> Result<f64, DesignError> {
+    if let Some(Scalar::Str(t)) = v.scalar() {
+        let trimmed = ["/√Hz", "/rtHz", "/sqrt(Hz)", "/√(Hz)"]
+            .iter()
+            .find_map(|suffix| t.trim_end().strip_suffix(suffix))
+            .unwrap_or(&t);
+        let x = parse_value(trimmed, q).map_err(|e| pos.err(v.span(), format!("{what}: {e}")))?;
+        if x < 0.0 {
+            return Err(pos.err(
+                v.span(),
+                format!("{what}: a noise density cannot be negative"),
+            ));
+        }
+        return Ok(x);
+    }
+    number(pos, v, q, what)
+}
+
+/// A temperature such as `"27 °C"`, `"300 K"`, `"27 degC"`, or a number of kelvin.
+fn temperature(pos: &Positions<'_>, v: Value<'_, '_>) -> Result<f64, DesignError> {
+    let bad = |m: &str| {
+        pos.err(
+            v.span(),
+            format!("temperature: {m}; give it in K or °C, e.g. \"300 K\" or \"27 °C\""),
+        )
+    };
+    match v.scalar() {
+        Some(Scalar::Str(t)) => {
+            let t = t.trim();
+            let (num, celsius) = if let Some(n) = t
+                .strip_suffix("°C")
+                .or_else(|| t.strip_suffix("degC"))
+                .or_else(|| t.strip_suffix('C'))
+            {
+                (n, true)
+            } else if let Some(n) = t.strip_suffix('K') {
+                (n, false)
+            } else {
+                return Err(bad(&format!("{t:?} has no unit")));
+            };
+            let x: f64 = num
+                .trim()
+                .parse()
+                .map_err(|_| bad(&format!("{:?} is not a number", num.trim())))?;
+            Ok(if celsius { x + 273.15 } else { x })
+        }
+        Some(Scalar::Int(i)) => Ok(i as f64),
+        Some(Scalar::Float(f)) => Ok(f),
+        _ => Err(bad("expected text such as \"300 K\"")),
+    }
+}
+
 /// "part NAME" in messages, written only when one is.
 struct PartName<'a>(&'a str);
 
@@ -685,10 +812,9 @@ fn add_part(
     let span = entry.span();
     let e = Fields::of_any(entry, &[KINDS, PART_KEYS], pos, |k| {
         format!(
-                "unknown part kind or key `{k}`; a part takes one kind ({}) and the keys of that kind ({})",
-                KINDS.join(", "),
-                PART_KEYS.join(", ")
-            )
+            "unknown part kind or key `{k}`; a part takes one kind ({}) and the keys of that kind (the README's table of part kinds lists them)",
+            KINDS.join(", "),
+        )
     })?;
     // One pass over the entries: the kinds given, in file order.
     let mut kinds: [Option<(&str, Range<usize>)>; 2] = [None, None];
@@ -728,7 +854,7 @@ fn add_part(
         "resistor" | "capacitor" | "inductor" => &["between", "tolerance"],
         "voltage" | "current" => &["between", "phase"],
         "vcvs" | "vccs" | "ccvs" | "cccs" => &["between", "control"],
-        "opamp" => &["noninverting", "inverting", "output", "dc_gain", "gbw"],
+        "opamp" => OPAMP_KEYS,
         _ => &["k"],
     };
     if let Some((k, _)) = e
@@ -905,6 +1031,33 @@ fn add_part(
                     ));
                 }
             }
+            let noise_keys = [
+                "noise_voltage",
+                "noise_voltage_corner",
+                "noise_current",
+                "noise_current_corner",
+            ];
+            if noise_keys.iter().any(|k| e.get(k).is_some()) {
+                let density = |key: &str, q: Quantity| -> Result<f64, DesignError> {
+                    match e.value(key) {
+                        Some(v) => noise_density(pos, v, q, &what),
+                        None => Ok(0.0),
+                    }
+                };
+                let corner = |key: &str| -> Result<f64, DesignError> {
+                    match e.value(key) {
+                        Some(v) => value(v, Quantity::Frequency),
+                        None => Ok(0.0),
+                    }
+                };
+                let n = crate::network::OpampNoise {
+                    voltage: density("noise_voltage", Quantity::Voltage)?,
+                    voltage_corner: corner("noise_voltage_corner")?,
+                    current: density("noise_current", Quantity::Current)?,
+                    current_corner: corner("noise_current_corner")?,
+                };
+                b.opamp_noise(name, n).map_err(net_err)?;
+            }
         }
         _ => {
             let pair = strings(kind_value).filter(|p| p.len() == 2);
@@ -1009,17 +1162,70 @@ fn read_response(
             )
         })
     };
-    let given = ["ratio", "impedance", "admittance"]
+    let given = ["ratio", "impedance", "admittance", "noise"]
         .iter()
         .filter(|k| e.get(k).is_some())
         .count();
     if given != 1 {
         return Err(pos.err(
             entry_span,
-            format!("response {name} needs exactly one of ratio, impedance or admittance"),
+            format!("response {name} needs exactly one of ratio, impedance, admittance or noise"),
         ));
     }
-    let kind = if let Some(r) = e.value("ratio") {
+    for key in ["referred_to", "source", "band"] {
+        if let (Some((k, _)), None) = (e.get(key), e.get("noise")) {
+            return Err(pos.err(
+                k.span.clone(),
+                format!("key {key} belongs to a noise response (response {name} is not one)"),
+            ));
+        }
+    }
+    let kind = if let Some(v) = e.value("noise") {
+        let (a, b) = match v {
+            Value::Array(_) => {
+                let (a, b) = two_nodes(pos, v, "noise")?;
+                (node(&a, v.span())?, node(&b, v.span())?)
+            }
+            _ => {
+                let n = string(pos, v, &format!("response {name}: noise"))?;
+                (node(&n, v.span())?, NodeId::GROUND)
+            }
+        };
+        if a == b {
+            return Err(pos.err(
+                v.span(),
+                format!("response {name}: the two nodes are the same"),
+            ));
+        }
+        let source = match e.value("source") {
+            Some(sv) => {
+                let part = string(pos, sv, &format!("response {name}: source"))?;
+                let id = net.part_id(&part).ok_or_else(|| {
+                    pos.err(
+                        sv.span(),
+                        format!("response {name}: source {part:?} is not a part of this design"),
+                    )
+                })?;
+                if !matches!(
+                    net.part(id).map(|p| &p.kind),
+                    Some(PartKind::Resistor { .. })
+                ) {
+                    return Err(pos.err(
+                        sv.span(),
+                        format!("response {name}: source {part:?} must be a resistor (the signal source's resistance, for the noise figure)"),
+                    ));
+                }
+                Some(id)
+            }
+            None => None,
+        };
+        ResponseKind::Noise {
+            plus: a,
+            minus: b,
+            referred_to: None,
+            source,
+        }
+    } else if let Some(r) = e.value("ratio") {
         let rspan = r.span();
         let probe = |p: Value<'_, '_>| -> Result<Probe, DesignError> {
             match p {
@@ -1148,12 +1354,40 @@ fn read_response(
         }
         None => None,
     };
+    let band = match e.value("band") {
+        Some(v) => {
+            let what = format!("response {name}: band");
+            let items: Vec<Value<'_, '_>> = match v {
+                Value::Array(a) => a.items().collect(),
+                _ => Vec::new(),
+            };
+            let [lo, hi] = items.as_slice() else {
+                return Err(pos.err(
+                    v.span(),
+                    format!("{what} takes two frequencies, e.g. [\"20 Hz\", \"20 kHz\"]"),
+                ));
+            };
+            let (lo, hi) = (
+                number(pos, *lo, Quantity::Frequency, &what)?,
+                number(pos, *hi, Quantity::Frequency, &what)?,
+            );
+            if !(lo > 0.0 && hi > lo) {
+                return Err(pos.err(
+                    v.span(),
+                    format!("{what} must run upwards from above 0 Hz, got {lo} Hz to {hi} Hz"),
+                ));
+            }
+            Some((lo, hi))
+        }
+        None => None,
+    };
     Ok(ResponseSpec {
         name: name.to_string(),
         kind,
         loop_gain,
         level_db,
         reference,
+        band,
     })
 }
 

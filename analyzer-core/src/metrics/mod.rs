@@ -219,6 +219,8 @@ pub struct Figures {
     pub margins: Option<Margins>,
     /// Poles and zeros of the response.
     pub poles: PoleTable,
+    /// Noise figures (noise responses only).
+    pub noise: Option<crate::noise::NoiseFigures>,
     /// Every refined extremum in the sweep, however small (limits are checked there).
     #[serde(skip)]
     pub extrema_hz: Vec<Hertz>,
@@ -508,11 +510,18 @@ pub fn figures(
         group_delay_hz: None,
         margins: None,
         poles,
+        noise: None,
         extrema_hz: Vec::new(),
     };
     let Some(range) = pts.range() else {
         return Ok(out);
     };
+    if unit == ResponseUnit::NoiseDensity {
+        out.class = "noise";
+        let band = spec.band.unwrap_or(range);
+        out.noise = Some(crate::noise::figures(ev, index, band)?);
+        return Ok(out);
+    }
 
     // Extrema: refined turning points of the grid and of the pole/zero seeds.
     let skeleton = Skeleton::find(&mut probe, &pts, pz)?;
@@ -568,7 +577,7 @@ pub fn figures(
         _ if spec.loop_gain => "loop gain",
         ResponseUnit::Ohms => "impedance",
         ResponseUnit::Siemens => "admittance",
-        ResponseUnit::Ratio => plan.class,
+        ResponseUnit::Ratio | ResponseUnit::NoiseDensity => plan.class,
     };
     out.dc_db = plan.dc_db;
     out.hf_db = plan.hf_db;
@@ -636,6 +645,35 @@ pub fn figures(
         out.margins = Some(margins(&mut probe, phase_pts, all_pts())?);
     }
     Ok(out)
+}
+
+/// Every figure of response `index`, as [`figures`] computes them, with the response's poles
+/// and zeros computed here (scaled to the grid's geometric centre; noise responses have
+/// none). The entry point for a sweep's figures.
+pub fn response_figures(
+    ev: &Evaluator<'_>,
+    grid: &Grid,
+    trace: &Trace,
+    index: usize,
+    opts: &MetricOptions,
+) -> Result<Figures, AnalysisError> {
+    let analysis = ev.analysis();
+    let noise = analysis
+        .responses()
+        .get(index)
+        .is_some_and(|r| r.kind.unit() == ResponseUnit::NoiseDensity);
+    let (pz, note) = if noise {
+        (None, None)
+    } else {
+        let (lo, hi) = grid.bounds();
+        let lo = if lo > 0.0 { lo } else { hi * 1e-6 };
+        let omega_s = 2.0 * PI * (lo * hi).sqrt();
+        match crate::poles::pole_zero(analysis, index, Some(omega_s)) {
+            Ok(p) => (Some(p), None),
+            Err(e) => (None, Some(e.to_string())),
+        }
+    };
+    figures(ev, grid, trace, index, opts, pz.as_ref(), note)
 }
 
 /// The crossing of `level` nearest to `from`, above it (`up`) or below it, searched outward

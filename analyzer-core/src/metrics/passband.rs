@@ -16,6 +16,12 @@
 //! | 0 | 0, otherwise | shelf | the higher asymptote |
 //! | anything else | | other | none (give `--reference`) |
 //!
+//! except that where the straight-line (Bode) approximation built from the poles and zeros
+//! has a flat stretch between two corners standing more than 1 dB above any flat stretch
+//! reaching DC or infinity, that plateau is the passband: the response is a band-pass and
+//! its reference is its peak (a stage with gain in its band and unity gain at DC is not a
+//! low-pass of its DC gain).
+//!
 //! The DC gain is solved at 0 Hz where the network allows, else at a frequency seven decades
 //! below every pole and zero; the high-frequency gain seven decades above them. The peak of a
 //! band-pass is the highest refined peak in the sweep, or found by a scan around the poles
@@ -133,7 +139,15 @@ pub(super) fn plan(
     let (dc, hf) = (plan.dc_db, plan.hf_db);
     let top_peak = peaks.iter().copied().max_by(|a, b| a.1.total_cmp(&b.1));
     let low_notch = notches.iter().copied().min_by(|a, b| a.1.total_cmp(&b.1));
+    // Where the asymptotic (straight-line) response is flat and highest: a passband at DC,
+    // at high frequencies, or a plateau between corners (a wide band-pass whose skirts
+    // level off, such as a stage with gain in its band and unity gain at DC).
+    let top = match pz {
+        Some(p) if !p.identically_zero => plateau(probe, p, dc, hf)?,
+        _ => Plateau::Unknown,
+    };
     plan.class = match (slope_lo, slope_hi) {
+        _ if top == Plateau::Interior => "band-pass",
         (Some(0), Some(h)) if h < 0 => "low-pass",
         (Some(l), Some(0)) if l > 0 => "high-pass",
         (Some(l), Some(h)) if l > 0 && h < 0 => "band-pass",
@@ -238,6 +252,67 @@ pub(super) fn plan(
         _ => {}
     }
     Ok(plan)
+}
+
+/// Where the highest flat stretch of the asymptotic response lies.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum Plateau {
+    /// It reaches down to DC (or to the high-frequency end, or both: see `Ends`).
+    Ends,
+    /// Between two corners, a clear 1 dB above any flat stretch reaching an end.
+    Interior,
+    /// Not known (no poles and zeros), or no flat stretch at all.
+    Unknown,
+}
+
+/// Where the asymptotic response of a pole–zero set is flat, and whether the highest flat
+/// stretch is between corners: the straight-line (Bode) approximation has slope
+/// (zeros − poles at the origin) below the lowest corner, and changes by +1 at each zero's
+/// |s| and −1 at each pole's (a pair counts twice). Each flat stretch's level is solved at
+/// its geometric middle (the ends use the DC and high-frequency gains).
+fn plateau(
+    probe: &mut Refiner<'_, '_>,
+    pz: &PoleZero,
+    dc: Option<f64>,
+    hf: Option<f64>,
+) -> Result<Plateau, AnalysisError> {
+    let mut corners: Vec<(f64, i64)> = pz
+        .zeros
+        .iter()
+        .map(|s| (s.norm(), 1))
+        .chain(pz.poles.iter().map(|s| (s.norm(), -1)))
+        .filter(|c| c.0 > 0.0)
+        .map(|(w, d)| (w / (2.0 * PI), d))
+        .collect();
+    corners.sort_by(|a, b| a.0.total_cmp(&b.0));
+    let mut slope = pz.slope_at_dc();
+    let mut best_end = f64::NEG_INFINITY;
+    let mut best_inner = f64::NEG_INFINITY;
+    if slope == 0 {
+        best_end = best_end.max(dc.unwrap_or(f64::NEG_INFINITY));
+    }
+    let mut k = 0;
+    while k < corners.len() {
+        let f = corners[k].0;
+        while k < corners.len() && corners[k].0 <= f * (1.0 + 1e-9) {
+            slope += corners[k].1;
+            k += 1;
+        }
+        let next = corners.get(k).map(|c| c.0);
+        if slope == 0 {
+            match next {
+                Some(g) => best_inner = best_inner.max(probe.db((f * g).sqrt())?),
+                None => best_end = best_end.max(hf.unwrap_or(f64::NEG_INFINITY)),
+            }
+        }
+    }
+    Ok(if best_inner > best_end + 1.0 {
+        Plateau::Interior
+    } else if best_end.is_finite() {
+        Plateau::Ends
+    } else {
+        Plateau::Unknown
+    })
 }
 
 /// A reference the user chose.
