@@ -272,9 +272,7 @@ fn run_check(path: &Path) -> Result<u8, Failure> {
                 p.name.clone(),
                 p.kind.word().to_string(),
                 p.value_text(net),
-                p.tolerance
-                    .map(|t| format!("±{}%", t * 100.0))
-                    .unwrap_or_default(),
+                p.tolerance_text(),
                 p.nodes_text(net),
             ]
         })

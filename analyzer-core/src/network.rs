@@ -232,10 +232,107 @@ pub struct Part {
     pub name: String,
     /// What it is and where it connects.
     pub kind: PartKind,
-    /// Manufacturing tolerance as a fraction (0.01 for 1 %), where given.
-    pub tolerance: Option<f64>,
+    /// Manufacturing tolerance of the part's main value ([`Param::Main`]), where given.
+    pub tolerance: Option<Tolerance>,
+    /// Manufacturing tolerance of a single-pole op-amp's gain-bandwidth product, where given.
+    pub gbw_tolerance: Option<Tolerance>,
     /// An op-amp's input noise, where given.
     pub noise: Option<OpampNoise>,
+}
+
+/// How a toleranced value spreads over the parts built.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Distribution {
+    /// Uniform over ±tolerance: every part inside, none preferred.
+    #[default]
+    Uniform,
+    /// Normal with σ = tolerance/3, truncated at ±tolerance (common practice: a process
+    /// centred in its band with 3σ at the band's edge, out-of-band parts sorted out).
+    Normal,
+}
+
+/// A manufacturing tolerance: the value lies within ±`fraction` of nominal.
+#[derive(Clone, Copy, Debug, PartialEq, serde::Serialize)]
+pub struct Tolerance {
+    /// Half-width as a fraction of the nominal value (0.01 for ±1 %).
+    pub fraction: f64,
+    /// How values spread within it.
+    pub distribution: Distribution,
+}
+
+/// Which value of a part: its main value (the resistance, capacitance, inductance, a
+/// controlled source's gain, an op-amp's DC gain) or a single-pole op-amp's gain-bandwidth
+/// product.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord, serde::Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Param {
+    /// R, C, L, k, a controlled source's gain, an op-amp's DC gain.
+    Main,
+    /// A single-pole op-amp's gain-bandwidth product.
+    Gbw,
+}
+
+impl PartKind {
+    /// The value of `param`, where the part has one.
+    pub fn value(&self, param: Param) -> Option<f64> {
+        match (self, param) {
+            (PartKind::Resistor { ohms, .. }, Param::Main) => Some(*ohms),
+            (PartKind::Capacitor { farads, .. }, Param::Main) => Some(*farads),
+            (PartKind::Inductor { henries, .. }, Param::Main) => Some(*henries),
+            (PartKind::Coupling { k, .. }, Param::Main) => Some(*k),
+            (PartKind::Vcvs { gain, .. } | PartKind::Cccs { gain, .. }, Param::Main) => Some(*gain),
+            (PartKind::Vccs { gm, .. }, Param::Main) => Some(*gm),
+            (PartKind::Ccvs { rm, .. }, Param::Main) => Some(*rm),
+            (PartKind::SinglePoleOpamp { dc_gain, .. }, Param::Main) => Some(*dc_gain),
+            (PartKind::SinglePoleOpamp { gbw, .. }, Param::Gbw) => Some(*gbw),
+            _ => None,
+        }
+    }
+
+    /// Sets the value of `param`; false where the part has no such value.
+    pub fn set_value(&mut self, param: Param, v: f64) -> bool {
+        let slot = match (self, param) {
+            (PartKind::Resistor { ohms, .. }, Param::Main) => ohms,
+            (PartKind::Capacitor { farads, .. }, Param::Main) => farads,
+            (PartKind::Inductor { henries, .. }, Param::Main) => henries,
+            (PartKind::Coupling { k, .. }, Param::Main) => k,
+            (PartKind::Vcvs { gain, .. } | PartKind::Cccs { gain, .. }, Param::Main) => gain,
+            (PartKind::Vccs { gm, .. }, Param::Main) => gm,
+            (PartKind::Ccvs { rm, .. }, Param::Main) => rm,
+            (PartKind::SinglePoleOpamp { dc_gain, .. }, Param::Main) => dc_gain,
+            (PartKind::SinglePoleOpamp { gbw, .. }, Param::Gbw) => gbw,
+            _ => return false,
+        };
+        *slot = v;
+        true
+    }
+
+    /// The unit of `param`'s value, for tables ("" for plain numbers).
+    pub fn unit(&self, param: Param) -> &'static str {
+        match (self, param) {
+            (PartKind::Resistor { .. } | PartKind::Ccvs { .. }, Param::Main) => "Ω",
+            (PartKind::Capacitor { .. }, Param::Main) => "F",
+            (PartKind::Inductor { .. }, Param::Main) => "H",
+            (PartKind::Vccs { .. }, Param::Main) => "S",
+            (_, Param::Gbw) => "Hz",
+            _ => "",
+        }
+    }
+}
+
+/// One value of a network that may vary: a part's parameter with its nominal value and, where
+/// given, its tolerance.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Varied {
+    /// The part.
+    pub part: PartId,
+    /// Which of its values.
+    pub param: Param,
+    /// Its nominal value.
+    pub nominal: f64,
+    /// Its tolerance, where given.
+    pub tolerance: Option<Tolerance>,
 }
 
 /// The input noise of an op-amp: a voltage density in series with the non-inverting input
@@ -278,6 +375,32 @@ impl Part {
             PartKind::SinglePoleOpamp { dc_gain, gbw, .. } => {
                 format!("A0 {}, GBW {}", e(dc_gain, ""), e(gbw, "Hz"))
             }
+        }
+    }
+
+    /// The part's tolerances as a table shows them: `±1 %`, `±5 % normal`, an op-amp's
+    /// `A0 ±20 %, GBW ±30 %`; empty without.
+    pub fn tolerance_text(&self) -> String {
+        let one = |t: &Tolerance| {
+            let pct = crate::units::format_percent(t.fraction);
+            match t.distribution {
+                Distribution::Uniform => format!("±{pct}"),
+                Distribution::Normal => format!("±{pct} normal"),
+            }
+        };
+        match (&self.kind, &self.tolerance, &self.gbw_tolerance) {
+            (PartKind::SinglePoleOpamp { .. }, a, g) => {
+                let mut v = Vec::new();
+                if let Some(a) = a {
+                    v.push(format!("A0 {}", one(a)));
+                }
+                if let Some(g) = g {
+                    v.push(format!("GBW {}", one(g)));
+                }
+                v.join(", ")
+            }
+            (_, Some(t), _) => one(t),
+            _ => String::new(),
         }
     }
 
@@ -382,6 +505,55 @@ impl Network {
     /// Number of nodes including ground.
     pub fn node_count(&self) -> usize {
         self.nodes.len()
+    }
+
+    /// Every value that may vary: each part's main value (and an op-amp's gain-bandwidth
+    /// product), with its tolerance where the design gives one, in part order.
+    pub fn varied(&self) -> Vec<Varied> {
+        let mut out = Vec::new();
+        for (i, p) in self.parts.iter().enumerate() {
+            for (param, tol) in [(Param::Main, p.tolerance), (Param::Gbw, p.gbw_tolerance)] {
+                if let Some(nominal) = p.kind.value(param) {
+                    out.push(Varied {
+                        part: PartId(i),
+                        param,
+                        nominal,
+                        tolerance: tol,
+                    });
+                }
+            }
+        }
+        out
+    }
+
+    /// The same network with some values changed: `(part, param, value)`. The structure (and
+    /// so the pattern of the system) stays the same. Fails, naming the part, on a value the
+    /// part cannot take (not positive and finite where it must be, a coupling outside (0, 1]).
+    pub fn with_values(&self, changes: &[(PartId, Param, f64)]) -> Result<Network, NetworkError> {
+        let mut net = self.clone();
+        for &(id, param, v) in changes {
+            let Some(p) = net.parts.get_mut(id.0) else {
+                continue;
+            };
+            let name = p.name.clone();
+            let positive = !matches!(
+                p.kind,
+                PartKind::Vcvs { .. }
+                    | PartKind::Vccs { .. }
+                    | PartKind::Ccvs { .. }
+                    | PartKind::Cccs { .. }
+            );
+            if positive {
+                check_positive(&name, "value", v)?;
+            } else {
+                check_range(&name, "value", v)?;
+            }
+            if matches!(p.kind, PartKind::Coupling { .. }) && v > 1.0 {
+                return Err(NetworkError::CouplingOutOfRange { part: name, k: v });
+            }
+            p.kind.set_value(param, v);
+        }
+        Ok(net)
     }
 }
 
@@ -704,6 +876,7 @@ impl NetworkBuilder {
                 k: 0.0,
             }),
             tolerance: None,
+            gbw_tolerance: None,
             noise: None,
         });
         let parts = &self.parts;
@@ -777,8 +950,46 @@ impl NetworkBuilder {
         }
     }
 
-    /// Sets the tolerance (a fraction) of the part added last under `name`.
-    pub fn tolerance(&mut self, name: &str, fraction: f64) -> Result<(), NetworkError> {
+    /// Gives every part that has a value of `param` but no tolerance for it the tolerance
+    /// `pick` chooses for its kind (None: leave it without).
+    pub fn default_tolerances(&mut self, pick: impl Fn(&PartKind, Param) -> Option<Tolerance>) {
+        for p in &mut self.parts {
+            for param in [Param::Main, Param::Gbw] {
+                if p.kind.value(param).is_none() {
+                    continue;
+                }
+                let slot = match param {
+                    Param::Main => &mut p.tolerance,
+                    Param::Gbw => &mut p.gbw_tolerance,
+                };
+                if slot.is_none() {
+                    *slot = pick(&p.kind, param);
+                }
+            }
+        }
+    }
+
+    /// Sets the distribution of the tolerance of `param` of part `name`, where it has one.
+    pub fn distribution(&mut self, name: &str, param: Param, d: Distribution) {
+        if let Some(p) = self.find_part(name).and_then(|i| self.parts.get_mut(i)) {
+            let slot = match param {
+                Param::Main => &mut p.tolerance,
+                Param::Gbw => &mut p.gbw_tolerance,
+            };
+            if let Some(t) = slot.as_mut() {
+                t.distribution = d;
+            }
+        }
+    }
+
+    /// Sets the tolerance of `param` of part `name` (fraction in [0, 1)).
+    pub fn tolerance(
+        &mut self,
+        name: &str,
+        param: Param,
+        tolerance: Tolerance,
+    ) -> Result<(), NetworkError> {
+        let fraction = tolerance.fraction;
         if !(fraction.is_finite() && (0.0..1.0).contains(&fraction)) {
             return Err(NetworkError::OutOfRange {
                 part: name.to_string(),
@@ -788,7 +999,10 @@ impl NetworkBuilder {
         }
         if let Some(i) = self.find_part(name) {
             if let Some(p) = self.parts.get_mut(i) {
-                p.tolerance = Some(fraction);
+                match param {
+                    Param::Main => p.tolerance = Some(tolerance),
+                    Param::Gbw => p.gbw_tolerance = Some(tolerance),
+                }
             }
         }
         Ok(())

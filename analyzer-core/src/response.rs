@@ -158,6 +158,10 @@ pub enum AnalysisError {
     /// A singular topology.
     #[error("{0}")]
     Topology(#[from] TopologyError),
+    /// A value the network cannot take (a changed or sampled value that is not positive, a
+    /// coupling above 1).
+    #[error("{0}")]
+    Network(#[from] crate::network::NetworkError),
     /// A response asks for something that cannot be read.
     #[error("response {response:?}: {reason}")]
     BadResponse {
@@ -269,6 +273,22 @@ impl Analysis {
     /// ω > 0; [`Analysis::check_dc`] adds the checks for 0 Hz.
     pub fn new(net: Network, specs: Vec<ResponseSpec>) -> Result<Self, AnalysisError> {
         topology::check(&net, false)?;
+        Self::assemble(net, specs)
+    }
+
+    /// The same analysis with some part values changed (`(part, param, value)`): the
+    /// structure is this one's, so the topology is not checked again, and an evaluator made
+    /// with [`Analysis::evaluator_like`] reuses this one's symbolic work. The solver choice
+    /// is kept.
+    pub fn with_values(
+        &self,
+        changes: &[(crate::network::PartId, crate::network::Param, f64)],
+    ) -> Result<Analysis, AnalysisError> {
+        let net = self.net.with_values(changes)?;
+        Ok(Self::assemble(net, self.specs.clone())?.with_solver(self.solver))
+    }
+
+    fn assemble(net: Network, specs: Vec<ResponseSpec>) -> Result<Self, AnalysisError> {
         let sys = System::assemble(&net);
         let mut excitations: Vec<Excitation> = Vec::new();
         let mut slot = |e: Excitation| match excitations.iter().position(|x| *x == e) {
@@ -462,6 +482,19 @@ impl Analysis {
             invert: r.invert,
             design: self.excitations.get(r.excitation) == Some(&Excitation::Design),
         })
+    }
+
+    /// An evaluator that reuses the solver path and symbolic work (band ordering, sparse
+    /// analysis) of `like`, an evaluator of an analysis with the same structure (one made
+    /// by [`Analysis::with_values`]); where the patterns differ, prepares afresh.
+    pub fn evaluator_like(&self, like: &Evaluator<'_>) -> Result<Evaluator<'_>, AnalysisError> {
+        match like.plan.rebind(&self.sys) {
+            Some(plan) => Ok(Evaluator {
+                analysis: self,
+                plan,
+            }),
+            None => self.evaluator(),
+        }
     }
 
     /// Prepares the solver (the sparse path does its symbolic analysis here).

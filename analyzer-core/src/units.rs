@@ -374,6 +374,18 @@ pub fn format_eng(value: f64, digits: usize, unit: &str) -> String {
     format!("{mantissa:.decimals$}{sep}{prefix}{unit}")
 }
 
+/// A fraction as a percentage with up to four decimals and no trailing zeros: `0.01` →
+/// `"1 %"`, `0.0025` → `"0.25 %"`.
+pub fn format_percent(fraction: f64) -> String {
+    let s = format!("{:.4}", fraction * 100.0);
+    let s = if s.contains('.') {
+        s.trim_end_matches('0').trim_end_matches('.')
+    } else {
+        &s
+    };
+    format!("{s} %")
+}
+
 /// As [`format_eng`] with up to `digits` significant digits and no trailing zeros:
 /// `format_short(0.01, 4, "Ω")` → `"10 mΩ"`, `format_short(4700.0, 4, "Ω")` → `"4.7 kΩ"`.
 pub fn format_short(value: f64, digits: usize, unit: &str) -> String {

@@ -21,12 +21,14 @@
 //! Every error carries the line and column (1-based) of the value or key at fault and says
 //! what to change. The full reference of part kinds is in the README.
 //!
-//! The TOML grammar is `toml_parser`'s; [`tree`] assembles the document in a compact form
+//! The TOML grammar is `toml_parser`'s; `tree` assembles the document in a compact form
 //! (a 200,000-part design reads in a fraction of a second), and this module walks it.
 
 mod tree;
 
-use crate::network::{Network, NetworkBuilder, NetworkError, NodeId, PartKind};
+use crate::network::{
+    Distribution, Network, NetworkBuilder, NetworkError, NodeId, Param, PartKind, Tolerance,
+};
 use crate::response::{Probe, ResponseKind, ResponseSpec};
 use crate::sweep::{Grid, GridError};
 use crate::units::{parse_value, Hertz, Quantity};
@@ -255,6 +257,9 @@ const OPAMP_KEYS: &[&str] = &[
     "noise_voltage_corner",
     "noise_current",
     "noise_current_corner",
+    "dc_gain_tolerance",
+    "gbw_tolerance",
+    "distribution",
 ];
 
 const PART_KEYS: &[&str] = &[
@@ -262,6 +267,9 @@ const PART_KEYS: &[&str] = &[
     "control",
     "k",
     "tolerance",
+    "distribution",
+    "dc_gain_tolerance",
+    "gbw_tolerance",
     "phase",
     "noninverting",
     "inverting",
@@ -278,6 +286,7 @@ const TOP_KEYS: &[&str] = &[
     "title",
     "caution",
     "temperature",
+    "tolerances",
     "sweep",
     "parts",
     "responses",
@@ -461,6 +470,7 @@ pub fn parse(text: &str) -> Result<Design, DesignError> {
         spans: Vec::new(),
         error: None,
         warnings: Vec::new(),
+        inherit: Vec::new(),
     };
     let doc = match tree::parse_with(text, &mut reader) {
         Ok(doc) => doc,
@@ -507,11 +517,16 @@ pub fn parse(text: &str) -> Result<Design, DesignError> {
         reader.add(&key.text, entry)?;
     }
     let PartsReader {
-        builder,
+        mut builder,
         spans,
         warnings,
+        inherit,
         ..
     } = reader;
+    if let Some(t) = top.value("tolerances") {
+        let t = table(&pos, t, || "[tolerances]".into())?;
+        default_tolerances(&pos, &mut builder, t, &inherit)?;
+    }
     let mut network = builder.build_locating().map_err(|(e, at)| {
         let span = at
             .and_then(|i| spans.get(i.0).cloned())
@@ -705,12 +720,21 @@ struct PartsReader<'p, 't> {
     /// The error that stopped the parse.
     error: Option<DesignError>,
     warnings: Vec<DesignWarning>,
+    /// Tolerances given without a distribution, for `[tolerances]` to set.
+    inherit: Vec<(String, Param)>,
 }
 
 impl PartsReader<'_, '_> {
     fn add(&mut self, name: &str, entry: Table<'_, '_>) -> Result<(), DesignError> {
         self.spans.push(entry.span());
-        add_part(self.pos, &mut self.builder, name, entry, &mut self.warnings)
+        add_part(
+            self.pos,
+            &mut self.builder,
+            name,
+            entry,
+            &mut self.warnings,
+            &mut self.inherit,
+        )
     }
 }
 
@@ -808,6 +832,7 @@ fn add_part(
     name: &str,
     entry: Table<'_, '_>,
     warnings: &mut Vec<DesignWarning>,
+    inherit: &mut Vec<(String, Param)>,
 ) -> Result<(), DesignError> {
     let span = entry.span();
     let e = Fields::of_any(entry, &[KINDS, PART_KEYS], pos, |k| {
@@ -851,9 +876,9 @@ fn add_part(
     };
     // Keys each kind allows besides its own.
     let allowed: &[&str] = match kind {
-        "resistor" | "capacitor" | "inductor" => &["between", "tolerance"],
+        "resistor" | "capacitor" | "inductor" => &["between", "tolerance", "distribution"],
         "voltage" | "current" => &["between", "phase"],
-        "vcvs" | "vccs" | "ccvs" | "cccs" => &["between", "control"],
+        "vcvs" | "vccs" | "ccvs" | "cccs" => &["between", "control", "tolerance", "distribution"],
         "opamp" => OPAMP_KEYS,
         _ => &["k"],
     };
@@ -916,11 +941,6 @@ fn add_part(
                 }
                 other => net_err(other),
             })?;
-            if let Some(t) = e.value("tolerance") {
-                let frac = value(t, Quantity::Percent)?;
-                b.tolerance(name, frac)
-                    .map_err(|e| pos.err(t.span(), e.to_string()))?;
-            }
         }
         "voltage" | "current" => {
             let (a, bb) = two_nodes(pos, between()?, "between")?;
@@ -1078,6 +1098,144 @@ fn add_part(
                 .map_err(|e| pos.err(kv.span(), e.to_string()))?;
         }
     }
+    part_tolerances(pos, b, name, &e, kind_value, inherit)
+}
+
+/// A part's own tolerances (`tolerance`, or an op-amp's `dc_gain_tolerance` and
+/// `gbw_tolerance`) and their `distribution`. A tolerance given without a distribution is
+/// listed in `inherit`, to take the design's default distribution.
+fn part_tolerances(
+    pos: &Positions<'_>,
+    b: &mut NetworkBuilder,
+    name: &str,
+    e: &Fields<'_, '_>,
+    kind_value: Value<'_, '_>,
+    inherit: &mut Vec<(String, Param)>,
+) -> Result<(), DesignError> {
+    let ideal = matches!(kind_value.scalar(), Some(Scalar::Str(m)) if m == "ideal");
+    let distribution = match e.value("distribution") {
+        Some(v) => Some(read_distribution(
+            pos,
+            v,
+            &format!("part {name}: distribution"),
+        )?),
+        None => None,
+    };
+    let mut any = false;
+    for (key, param) in [
+        ("tolerance", Param::Main),
+        ("dc_gain_tolerance", Param::Main),
+        ("gbw_tolerance", Param::Gbw),
+    ] {
+        let Some(t) = e.value(key) else {
+            continue;
+        };
+        if ideal {
+            return Err(pos.err(
+                t.span(),
+                format!("an ideal op-amp has no values to vary; {key} applies to opamp = \"single-pole\""),
+            ));
+        }
+        let fraction = number(pos, t, Quantity::Percent, &PartName(name))?;
+        let tol = Tolerance {
+            fraction,
+            distribution: distribution.unwrap_or_default(),
+        };
+        b.tolerance(name, param, tol)
+            .map_err(|e| pos.err(t.span(), e.to_string()))?;
+        if distribution.is_none() {
+            inherit.push((name.to_string(), param));
+        }
+        any = true;
+    }
+    if let (Some(v), false) = (e.value("distribution"), any) {
+        return Err(pos.err(
+            v.span(),
+            format!("part {name}: distribution applies to a tolerance; give tolerance = \"1%\" (or the like) too"),
+        ));
+    }
+    Ok(())
+}
+
+/// `"uniform"` or `"normal"`.
+fn read_distribution(
+    pos: &Positions<'_>,
+    v: Value<'_, '_>,
+    what: &str,
+) -> Result<Distribution, DesignError> {
+    match string(pos, v, what)?.as_str() {
+        "uniform" => Ok(Distribution::Uniform),
+        "normal" => Ok(Distribution::Normal),
+        other => Err(pos.err(
+            v.span(),
+            format!("{what}: unknown distribution {other:?}; use \"uniform\" (every value inside ±tolerance, equally likely) or \"normal\" (σ = tolerance/3, cut at ±tolerance)"),
+        )),
+    }
+}
+
+/// The keys of `[tolerances]`: a default tolerance per kind, and the default distribution.
+const TOLERANCE_KEYS: &[&str] = &[
+    "resistor",
+    "capacitor",
+    "inductor",
+    "controlled",
+    "dc_gain",
+    "gbw",
+    "distribution",
+];
+
+/// Reads `[tolerances]` and gives its defaults to every part without a tolerance of its own;
+/// tolerances given without a distribution take its `distribution`.
+fn default_tolerances(
+    pos: &Positions<'_>,
+    b: &mut NetworkBuilder,
+    table: Table<'_, '_>,
+    inherit: &[(String, Param)],
+) -> Result<(), DesignError> {
+    let e = Fields::of(table, TOLERANCE_KEYS, pos, unknown_key(TOLERANCE_KEYS))?;
+    let distribution = match e.value("distribution") {
+        Some(v) => read_distribution(pos, v, "[tolerances] distribution")?,
+        None => Distribution::Uniform,
+    };
+    let mut by_key = [None; 6];
+    for (slot, key) in by_key.iter_mut().zip(TOLERANCE_KEYS) {
+        if let Some(v) = e.value(key) {
+            let what = format!("[tolerances] {key}");
+            let fraction = number(pos, v, Quantity::Percent, &what)?;
+            if !(0.0..1.0).contains(&fraction) {
+                return Err(pos.err(
+                    v.span(),
+                    format!(
+                        "{what}: {} is outside 0 % to 100 %",
+                        crate::units::format_percent(fraction)
+                    ),
+                ));
+            }
+            *slot = Some(Tolerance {
+                fraction,
+                distribution,
+            });
+        }
+    }
+    for (name, param) in inherit {
+        b.distribution(name, *param, distribution);
+    }
+    let [resistor, capacitor, inductor, controlled, dc_gain, gbw] = by_key;
+    b.default_tolerances(|kind, param| match (kind, param) {
+        (PartKind::Resistor { .. }, Param::Main) => resistor,
+        (PartKind::Capacitor { .. }, Param::Main) => capacitor,
+        (PartKind::Inductor { .. }, Param::Main) => inductor,
+        (
+            PartKind::Vcvs { .. }
+            | PartKind::Vccs { .. }
+            | PartKind::Ccvs { .. }
+            | PartKind::Cccs { .. },
+            Param::Main,
+        ) => controlled,
+        (PartKind::SinglePoleOpamp { .. }, Param::Main) => dc_gain,
+        (PartKind::SinglePoleOpamp { .. }, Param::Gbw) => gbw,
+        _ => None,
+    });
     Ok(())
 }
 
@@ -1437,7 +1595,13 @@ zin = { impedance = ["in", "gnd"] }
         assert_eq!(d.network.parts().len(), 3);
         assert_eq!(d.responses.len(), 2);
         assert_eq!(d.sweep.grid().unwrap().len(), 51);
-        assert_eq!(d.network.parts()[1].tolerance, Some(0.01));
+        assert_eq!(
+            d.network.parts()[1].tolerance,
+            Some(Tolerance {
+                fraction: 0.01,
+                distribution: Distribution::Uniform
+            })
+        );
     }
 
     fn err(text: &str) -> String {

@@ -5,13 +5,13 @@
 //! the searches the grid could step over. A figure is therefore the same, to its tolerance,
 //! on any grid that contains it.
 //!
-//! * **Extrema** ([`extrema`]): every turning point of `|H|` on the grid, and a local search
+//! * **Extrema** (`extrema`): every turning point of `|H|` on the grid, and a local search
 //!   around every pole pair and every zero pair with Q > 0.5 inside the sweep, is refined as a
 //!   root of the exact slope `Re(ω·H′/H)` (Brent). Peaks and notches are reported when their
 //!   prominence — the rise above (or fall below) the higher of the two lowest points between
 //!   them and the nearest higher (lower) point on either side, as `scipy.signal`'s
 //!   `peak_prominences` defines it — is at least [`MIN_PROMINENCE_DB`].
-//! * **The passband reference** ([`passband`]): a ratio is classified by its asymptotes
+//! * **The passband reference** (`passband`): a ratio is classified by its asymptotes
 //!   (from its poles and zeros, or the exact slope far outside the sweep): low-pass → the DC
 //!   gain, high-pass → the high-frequency gain, band-pass → its peak, band-stop → each side
 //!   to its own asymptote, flat or all-pass → no cut-off (common practice in filter design).
@@ -64,7 +64,7 @@ pub const MIN_PROMINENCE_IMMITTANCE_DB: f64 = 1.0;
 #[derive(Clone, Copy, Debug, PartialEq, Default)]
 pub enum Reference {
     /// The passband of the network: chosen from the response's asymptotes (see
-    /// [`passband`]): DC gain, high-frequency gain, peak, or none.
+    /// `passband`): DC gain, high-frequency gain, peak, or none.
     #[default]
     Auto,
     /// The gain at 0 Hz (or its limit).

@@ -101,6 +101,38 @@ impl BandLayout {
         })
     }
 
+    /// The same ordering and band for `sys`, a system with the pattern this layout was
+    /// made from but other values: only the values are laid out again.
+    pub fn with_values(&self, sys: &System) -> Option<BandLayout> {
+        let n = self.n;
+        if sys.n != n {
+            return None;
+        }
+        let mut position = vec![usize::MAX; n];
+        for (new, &old) in self.order.iter().enumerate() {
+            *position.get_mut(old)? = new;
+        }
+        let (kl, wa) = (self.kl, self.kl + self.ku + 1);
+        let (mut g, mut c) = (vec![0.0; n * wa], vec![0.0; n * wa]);
+        for ((&(r, col), &gv), &cv) in sys.pattern.iter().zip(&sys.g).zip(&sys.c) {
+            let (i, j) = (*position.get(r)?, *position.get(col)?);
+            if j + kl < i || j > i + self.ku {
+                return None;
+            }
+            let at = i * wa + (j + kl - i);
+            *g.get_mut(at)? += gv;
+            *c.get_mut(at)? += cv;
+        }
+        Some(BandLayout {
+            n,
+            kl,
+            ku: self.ku,
+            order: self.order.clone(),
+            g,
+            c,
+        })
+    }
+
     /// Entries per row of the band storage.
     pub fn width(&self) -> usize {
         2 * self.kl + self.ku + 1

@@ -164,6 +164,26 @@ impl<'a> SolverPlan<'a> {
         })
     }
 
+    /// The same path and symbolic work for `sys`, a system with the same pattern as this
+    /// plan's (the same network with other values); None if the patterns differ.
+    pub fn rebind<'b>(&self, sys: &'b System) -> Option<SolverPlan<'b>> {
+        if sys.n != self.sys.n || sys.pattern != self.sys.pattern {
+            return None;
+        }
+        // The band layout holds the values in its order: lay them out again; the sparse
+        // analysis is of the pattern alone.
+        let band = match &self.band {
+            Some(layout) => Some(Arc::new(layout.with_values(sys)?)),
+            None => None,
+        };
+        Some(SolverPlan {
+            sys,
+            kind: self.kind,
+            band,
+            sparse: self.sparse.clone(),
+        })
+    }
+
     /// The path in use.
     pub fn kind(&self) -> SolverKind {
         self.kind
