@@ -5,6 +5,7 @@
 
 mod output;
 mod report;
+mod study;
 
 use analyzer_core::design::{self, Design};
 use analyzer_core::export::{self, CsvStream, Polar};
@@ -60,6 +61,11 @@ enum Command {
         /// The design file (TOML).
         design: PathBuf,
     },
+    /// Tolerance study: draw the toleranced values N times, solve each sample, and report
+    /// the spread of every figure, each limit's yield and the envelope of each response.
+    Spread(Box<study::SpreadArgs>),
+    /// Combine the partial results of `spread --shard K/M` runs into the whole study.
+    Merge(study::MergeArgs),
 }
 
 #[derive(Args, Debug)]
@@ -181,6 +187,8 @@ fn main() -> ExitCode {
     let result = match cli.command {
         Command::Sweep(args) => run_sweep(&args),
         Command::Check { design } => run_check(&design),
+        Command::Spread(args) => study::run_spread(&args),
+        Command::Merge(args) => study::run_merge(&args),
     };
     match result {
         Ok(code) => ExitCode::from(code),
@@ -191,7 +199,7 @@ fn main() -> ExitCode {
     }
 }
 
-fn load(path: &Path) -> Result<Design, Failure> {
+pub(crate) fn load(path: &Path) -> Result<Design, Failure> {
     let shown = path.display();
     let meta = std::fs::metadata(path).map_err(|e| Failure::input(format!("{shown}: {e}")))?;
     if meta.len() > design::MAX_DESIGN_BYTES as u64 {
@@ -205,7 +213,7 @@ fn load(path: &Path) -> Result<Design, Failure> {
     design::parse(&text).map_err(|e| Failure::input(format!("{shown}:{e}")))
 }
 
-fn print_warnings(d: &Design, path: &Path) {
+pub(crate) fn print_warnings(d: &Design, path: &Path) {
     for w in &d.warnings {
         eprintln!("warning: {}:{w}", path.display());
     }
@@ -301,8 +309,9 @@ fn run_check(path: &Path) -> Result<u8, Failure> {
     Ok(0)
 }
 
-fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
-    if let Some(n) = args.threads {
+/// Sets the size of rayon's pool (None: all cores).
+pub(crate) fn set_threads(threads: Option<usize>) -> Result<(), Failure> {
+    if let Some(n) = threads {
         if n == 0 {
             return Err(Failure::input("--threads must be at least 1"));
         }
@@ -311,6 +320,11 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
             .num_threads(n)
             .build_global();
     }
+    Ok(())
+}
+
+fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
+    set_threads(args.threads)?;
     if args.output.as_deref() == Some("-") && args.json.as_deref() == Some("-") {
         return Err(Failure::input(
             "-o - and --json - would both write to stdout; send one of them to a file (e.g. --json figures.json)",

@@ -512,6 +512,21 @@ pub fn render_svg(input: &PlotInput<'_>) -> Result<String, PlotError> {
     Ok(svg)
 }
 
+type SvgArea<'b> = DrawingArea<SVGBackend<'b>, plotters::coord::Shift>;
+
+/// Fills a plot white, writes its title line, and returns the area below the title.
+fn titled<'b>(root: &SvgArea<'b>, title: &str) -> Result<SvgArea<'b>, PlotError> {
+    root.fill(&WHITE).map_err(perr)?;
+    let (head, body) = root.split_vertically(44);
+    head.draw(&Text::new(
+        title.to_string(),
+        (16, 14),
+        ("sans-serif", 20).into_font().color(&INK),
+    ))
+    .map_err(perr)?;
+    Ok(body)
+}
+
 /// A noise plot: the total density and the largest contributors on log-log axes.
 #[derive(Clone, Debug)]
 pub struct NoisePlot<'a> {
@@ -565,14 +580,7 @@ pub fn render_noise_svg(input: &NoisePlot<'_>) -> Result<String, PlotError> {
     let mut svg = String::new();
     {
         let root = SVGBackend::with_string(&mut svg, (960, 520)).into_drawing_area();
-        root.fill(&WHITE).map_err(perr)?;
-        let (head, body) = root.split_vertically(44);
-        head.draw(&Text::new(
-            input.title.clone(),
-            (16, 14),
-            ("sans-serif", 20).into_font().color(&INK),
-        ))
-        .map_err(perr)?;
+        let body = titled(&root, &input.title)?;
         let mut chart = ChartBuilder::on(&body)
             .margin_left(12)
             .margin_right(24)
@@ -855,4 +863,149 @@ mod tests {
             "frequency_hz,magnitude_db,phase_deg,real_ohm,imag_ohm\n1.0,0.0,0.0,1.0,0.0\n10.0,0.0,90.0,0.0,1.0\n"
         );
     }
+}
+
+/// What an envelope plot shows: a tolerance study's spread of |H| with the nominal trace.
+#[derive(Clone, Debug)]
+pub struct EnvelopePlot<'a> {
+    /// Title line.
+    pub title: String,
+    /// Axis label of the magnitude, with its unit.
+    pub label: String,
+    /// The spread.
+    pub envelope: &'a crate::spread::EnvelopeTraces,
+    /// Limits on this response, drawn as masks over their forbidden regions.
+    pub limits: &'a [crate::metrics::Limit],
+}
+
+const SPREAD_OUTER: RGBColor = RGBColor(0xcf, 0xe6, 0xdc);
+const SPREAD_INNER: RGBColor = RGBColor(0x8f, 0xc4, 0xad);
+const MASK: RGBColor = RGBColor(0xb3, 0x3c, 0x1a);
+
+/// Renders an envelope plot: the min–max band light, the 5–95 % band darker, the nominal
+/// trace on top, and each limit's forbidden region (above `max_db`, below `min_db`, over its
+/// frequency range) as a translucent mask with its name.
+pub fn render_envelope_svg(input: &EnvelopePlot<'_>) -> Result<String, PlotError> {
+    let e = input.envelope;
+    let keep: Vec<usize> = (0..e.freqs.len())
+        .filter(|&k| e.freqs[k] > 0.0 && e.min[k].is_finite() && e.max[k].is_finite())
+        .collect();
+    let (Some(&first), Some(&last)) = (keep.first(), keep.last()) else {
+        return Err(PlotError(
+            "an envelope plot needs finite magnitudes at frequencies above 0 Hz".into(),
+        ));
+    };
+    let (mut f0, mut f1) = (e.freqs[first], e.freqs[last]);
+    if f1 <= f0 {
+        f0 /= 1.5;
+        f1 *= 1.5;
+    }
+    let mut ys: Vec<f64> = keep.iter().flat_map(|&k| [e.min[k], e.max[k]]).collect();
+    for l in input.limits {
+        ys.extend(l.min_db.iter().chain(l.max_db.iter()).copied());
+    }
+    let (y0, y1) = padded_range(&ys, 1.0);
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, (960, 520)).into_drawing_area();
+        let body = titled(&root, &input.title)?;
+        let mut chart = ChartBuilder::on(&body)
+            .margin_left(12)
+            .margin_right(24)
+            .margin_top(6)
+            .margin_bottom(6)
+            .x_label_area_size(40)
+            .y_label_area_size(78)
+            .build_cartesian_2d((f0..f1).log_scale(), y0..y1)
+            .map_err(perr)?;
+        chart
+            .configure_mesh()
+            .y_desc(input.label.clone())
+            .x_desc("frequency (Hz)")
+            .light_line_style(MINOR)
+            .bold_line_style(DECADE)
+            .axis_style(INK)
+            .label_style(("sans-serif", 13).into_font().color(&INK))
+            .x_label_formatter(&|f| tidy_label(format_eng(*f, 3, "Hz")))
+            .y_label_formatter(&|v| tidy_label(format_eng(*v, 3, "")))
+            .draw()
+            .map_err(perr)?;
+        let band = |lo: &[f64], hi: &[f64]| -> Vec<(f64, f64)> {
+            let mut pts: Vec<(f64, f64)> = keep.iter().map(|&k| (e.freqs[k], hi[k])).collect();
+            pts.extend(keep.iter().rev().map(|&k| (e.freqs[k], lo[k])));
+            pts.retain(|p| p.1.is_finite());
+            pts
+        };
+        chart
+            .draw_series(std::iter::once(Polygon::new(
+                band(&e.min, &e.max),
+                SPREAD_OUTER.filled(),
+            )))
+            .map_err(perr)?
+            .label("min … max")
+            .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 18, y + 5)], SPREAD_OUTER.filled()));
+        chart
+            .draw_series(std::iter::once(Polygon::new(
+                band(&e.p5, &e.p95),
+                SPREAD_INNER.filled(),
+            )))
+            .map_err(perr)?
+            .label("5 % … 95 %")
+            .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 18, y + 5)], SPREAD_INNER.filled()));
+        for l in input.limits {
+            let (a, b) = (l.from.max(f0), l.to.min(f1));
+            if a >= b {
+                continue;
+            }
+            for (lo, hi) in [l.max_db.map(|m| (m, y1)), l.min_db.map(|m| (y0, m))]
+                .into_iter()
+                .flatten()
+            {
+                if hi <= lo {
+                    continue;
+                }
+                chart
+                    .draw_series(std::iter::once(Rectangle::new(
+                        [(a, lo), (b, hi)],
+                        MASK.mix(0.12).filled(),
+                    )))
+                    .map_err(perr)?;
+                let edge = if hi == y1 { lo } else { hi };
+                chart
+                    .draw_series(LineSeries::new(
+                        [(a, edge), (b, edge)],
+                        MASK.stroke_width(2),
+                    ))
+                    .map_err(perr)?;
+            }
+            let y = l.max_db.or(l.min_db).unwrap_or(y0);
+            chart
+                .draw_series(std::iter::once(Text::new(
+                    l.name.clone(),
+                    (a, y),
+                    ("sans-serif", 12).into_font().color(&MASK),
+                )))
+                .map_err(perr)?;
+        }
+        chart
+            .draw_series(LineSeries::new(
+                keep.iter()
+                    .map(|&k| (e.freqs[k], e.nominal[k]))
+                    .filter(|p| p.1.is_finite()),
+                TRACE.stroke_width(2),
+            ))
+            .map_err(perr)?
+            .label("nominal")
+            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], TRACE.stroke_width(2)));
+        chart
+            .configure_series_labels()
+            .background_style(WHITE.mix(0.85))
+            .border_style(MINOR)
+            .label_font(("sans-serif", 12).into_font().color(&INK))
+            .position(SeriesLabelPosition::LowerLeft)
+            .draw()
+            .map_err(perr)?;
+        root.present().map_err(perr)?;
+    }
+    Ok(svg)
 }

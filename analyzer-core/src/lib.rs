@@ -60,6 +60,7 @@ pub mod noise;
 pub mod poles;
 pub mod response;
 pub mod solve;
+pub mod spread;
 pub mod stamp;
 pub mod sweep;
 pub mod topology;

@@ -227,7 +227,7 @@ pub struct Figures {
 }
 
 /// A magnitude limit: the response must stay within `[min_db, max_db]` over `[from, to]`.
-#[derive(Clone, Debug, PartialEq, Serialize)]
+#[derive(Clone, Debug, PartialEq, Serialize, serde::Deserialize)]
 pub struct Limit {
     /// Name of the limit.
     pub name: String,
@@ -862,4 +862,58 @@ fn margins(
         }
     }
     Ok(m)
+}
+
+/// A network's response over a grid with its figures and limit checks: what a sweep prints,
+/// computed in one call from an evaluator (the pipeline a tolerance study, a variant and a
+/// worst-case check run per network).
+#[derive(Clone, Debug)]
+pub struct Assessment {
+    /// The complex value of each response at each grid point (response-major).
+    pub values: Vec<Vec<num_complex::Complex64>>,
+    /// Each response's trace.
+    pub traces: Vec<Trace>,
+    /// Each response's figures.
+    pub figures: Vec<Figures>,
+    /// Each limit's outcome, in the order given (limits on responses the analysis does not
+    /// have are left out).
+    pub checks: Vec<LimitResult>,
+}
+
+/// Solves `ev` at every point of `grid` and computes every response's figures (with
+/// `opts[r]` for response r) and every limit's outcome.
+pub fn assess(
+    ev: &Evaluator<'_>,
+    grid: &Grid,
+    opts: &[MetricOptions],
+    limits: &[Limit],
+) -> Result<Assessment, AnalysisError> {
+    let specs = ev.analysis().responses();
+    let nr = specs.len();
+    let freqs = grid.points();
+    let mut ws = ev.workspace();
+    let pts = ev.at_many(&mut ws, &freqs, false)?;
+    let mut values = vec![Vec::with_capacity(freqs.len()); nr];
+    for k in 0..freqs.len() {
+        for (r, v) in values.iter_mut().enumerate() {
+            v.push(pts[k * nr + r].value);
+        }
+    }
+    let traces: Vec<Trace> = values.iter().map(|v| Trace::from_values(v, None)).collect();
+    let default = MetricOptions::default();
+    let figures = (0..nr)
+        .map(|r| response_figures(ev, grid, &traces[r], r, opts.get(r).unwrap_or(&default)))
+        .collect::<Result<Vec<_>, _>>()?;
+    let mut checks = Vec::new();
+    for limit in limits {
+        if let Some(r) = specs.iter().position(|s| s.name == limit.response) {
+            checks.push(check_limit(ev, grid, &traces[r], r, &figures[r], limit)?);
+        }
+    }
+    Ok(Assessment {
+        values,
+        traces,
+        figures,
+        checks,
+    })
 }
