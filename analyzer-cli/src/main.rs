@@ -6,6 +6,7 @@
 mod output;
 mod report;
 mod study;
+mod whatif;
 
 use analyzer_core::design::{self, Design};
 use analyzer_core::export::{self, CsvStream, Polar};
@@ -66,6 +67,15 @@ enum Command {
     Spread(Box<study::SpreadArgs>),
     /// Combine the partial results of `spread --shard K/M` runs into the whole study.
     Merge(study::MergeArgs),
+    /// Which value moves which figure: the sensitivity of every figure and limit margin to
+    /// +1 % of every part value, ranked, by the adjoint method.
+    Sensitivity(Box<whatif::SensitivityArgs>),
+    /// Worst case per limit: the corner of the tolerance box that lowers its margin most,
+    /// predicted from the sensitivities and verified by re-solving.
+    Corners(Box<whatif::CornersArgs>),
+    /// The design swept once per value of a part (--step) or moved to preferred values
+    /// (--snap E24): overlaid plots, CSVs per variant, figures side by side.
+    Variants(Box<whatif::VariantsArgs>),
 }
 
 #[derive(Args, Debug)]
@@ -89,6 +99,10 @@ struct SweepArgs {
     /// Linearly spaced sweep with this many points (overrides the design's spacing).
     #[arg(long, value_name = "N")]
     points: Option<usize>,
+    /// Change a value before sweeping, e.g. `--set R2=4k7` or `--set U1.gbw=3MHz`
+    /// (repeatable).
+    #[arg(long, value_name = "NAME=VALUE")]
+    set: Vec<String>,
     /// Compute only these responses (comma-separated names from the design).
     #[arg(long, value_name = "NAMES", value_delimiter = ',')]
     only: Vec<String>,
@@ -189,6 +203,9 @@ fn main() -> ExitCode {
         Command::Check { design } => run_check(&design),
         Command::Spread(args) => study::run_spread(&args),
         Command::Merge(args) => study::run_merge(&args),
+        Command::Sensitivity(args) => whatif::run_sensitivity(&args),
+        Command::Corners(args) => whatif::run_corners(&args),
+        Command::Variants(args) => whatif::run_variants(&args),
     };
     match result {
         Ok(code) => ExitCode::from(code),
@@ -309,6 +326,23 @@ fn run_check(path: &Path) -> Result<u8, Failure> {
     Ok(0)
 }
 
+/// Applies `--set NAME=VALUE` changes to a design's network.
+pub(crate) fn apply_sets(d: &mut Design, sets: &[String]) -> Result<(), Failure> {
+    let mut changes = Vec::new();
+    for s in sets {
+        let (t, v) = analyzer_core::variants::parse_set(&d.network, s)
+            .map_err(|e| Failure::input(format!("--set {s}: {e}")))?;
+        changes.push((t.part, t.param, v));
+    }
+    if !changes.is_empty() {
+        d.network = d
+            .network
+            .with_values(&changes)
+            .map_err(|e| Failure::input(format!("--set: {e}")))?;
+    }
+    Ok(())
+}
+
 /// Sets the size of rayon's pool (None: all cores).
 pub(crate) fn set_threads(threads: Option<usize>) -> Result<(), Failure> {
     if let Some(n) = threads {
@@ -341,6 +375,7 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
     if !args.quiet {
         print_warnings(&d, &args.design);
     }
+    apply_sets(&mut d, &args.set)?;
     let shown = args.design.display().to_string();
     let freq = |s: &str, flag: &str| {
         parse_value(s, Quantity::Frequency).map_err(|e| Failure::input(format!("--{flag}: {e}")))

@@ -1,10 +1,8 @@
 //! `analyzer spread` and `analyzer merge`: tolerance studies, run whole or in shards.
 
 use crate::output::{safe_file_name, Staging};
-use crate::{load, print_warnings, Failure};
+use crate::Failure;
 use analyzer_core::export::{self, EnvelopePlot};
-use analyzer_core::metrics::MetricOptions;
-use analyzer_core::response::Analysis;
 use analyzer_core::spread::{self, Outcome, SpreadState, SpreadSummary, Study};
 use analyzer_core::units::format_eng;
 use clap::Args;
@@ -14,9 +12,10 @@ use std::path::{Path, PathBuf};
 
 #[derive(Args, Debug)]
 pub struct SpreadArgs {
-    /// The design file (TOML); parts need tolerances (a part's `tolerance`, or defaults
-    /// per kind in a `tolerances` table).
-    design: PathBuf,
+    /// The design (its parts need tolerances: a part's `tolerance`, or defaults per kind in a
+    /// `tolerances` table), --set, the sweep's spacing, output and verbosity.
+    #[command(flatten)]
+    common: crate::whatif::Common,
     /// Number of samples in the whole study.
     #[arg(long, value_name = "N", default_value_t = 1000)]
     samples: u64,
@@ -24,24 +23,12 @@ pub struct SpreadArgs {
     #[arg(long, value_name = "S", default_value_t = 1)]
     seed: u64,
     /// Run only samples i ≡ K (mod M), K from 0 to M−1, and write a partial result for
-    /// `analyzer merge`.
+    /// `analyzer merge` (default output DESIGN-spread-K-of-M/).
     #[arg(long, value_name = "K/M")]
     shard: Option<String>,
-    /// Log-spaced sweep with this many points per decade (overrides the design's spacing).
-    #[arg(long, value_name = "N")]
-    per_decade: Option<f64>,
-    /// Output directory (default: DESIGN-spread/, or DESIGN-spread-K-of-M/ for a shard).
-    #[arg(short, long, value_name = "DIR")]
-    output: Option<PathBuf>,
-    /// Skip the SVG plots.
-    #[arg(long)]
-    no_plot: bool,
     /// Worker threads (default: all cores).
     #[arg(long, value_name = "N")]
     threads: Option<usize>,
-    /// Print nothing but errors (and no progress bar).
-    #[arg(short, long)]
-    quiet: bool,
 }
 
 #[derive(Args, Debug)]
@@ -63,9 +50,9 @@ pub struct MergeArgs {
 
 /// FNV-1a of the design text and the settings that shape a study: shards of one study must
 /// agree on it. An identity check, not a security one.
-fn fingerprint(text: &[u8], per_decade: Option<f64>) -> String {
+fn fingerprint(text: &[u8], per_decade: Option<f64>, sets: &[String]) -> String {
     let mut h: u64 = 0xcbf2_9ce4_8422_2325;
-    let extra = format!("{per_decade:?}");
+    let extra = format!("{per_decade:?}{sets:?}");
     for &b in text.iter().chain(extra.as_bytes()) {
         h ^= u64::from(b);
         h = h.wrapping_mul(0x0000_0100_0000_01b3);
@@ -97,61 +84,28 @@ pub fn run_spread(args: &SpreadArgs) -> Result<u8, Failure> {
         Some(s) => parse_shard(s)?,
         None => (0, 1),
     };
-    let text = std::fs::read(&args.design)
-        .map_err(|e| Failure::input(format!("{}: {e}", args.design.display())))?;
-    let mut d = load(&args.design)?;
-    if !args.quiet {
-        print_warnings(&d, &args.design);
-    }
-    let shown = args.design.display().to_string();
-    if let Some(n) = args.per_decade {
-        d.sweep.per_decade = Some(n);
-        d.sweep.points = None;
-        d.sweep.at = None;
-    }
-    let grid = d
-        .sweep
-        .grid()
-        .map_err(|e| Failure::input(format!("{shown}: sweep: {e}")))?;
-    let limits = d.limits.clone();
-    let analysis = Analysis::new(d.network, d.responses)
-        .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
-    let ev = analysis
+    let text = std::fs::read(&args.common.design)
+        .map_err(|e| Failure::input(format!("{}: {e}", args.common.design.display())))?;
+    let command = if shards > 1 {
+        format!("spread-{shard}-of-{shards}")
+    } else {
+        "spread".to_string()
+    };
+    let p = crate::whatif::prepare(&args.common, &command)?;
+    let shown = &p.shown;
+    let ev = p
+        .analysis
         .evaluator()
         .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
-    let opts: Vec<MetricOptions> = analysis
-        .responses()
-        .iter()
-        .map(|s| MetricOptions {
-            level_db: s.level_db,
-            reference: s.reference.unwrap_or_default(),
-        })
-        .collect();
-    let study = Study::new(&ev, &grid, opts, &limits, args.seed)
+    let study = Study::new(&ev, &p.grid, p.opts.clone(), &p.limits, args.seed)
         .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
     let mut state = study.state(
-        &fingerprint(&text, args.per_decade),
+        &fingerprint(&text, args.common.per_decade, &args.common.set),
         args.samples,
         shard,
         shards,
     );
-    let out_dir = args.output.clone().unwrap_or_else(|| {
-        let stem = args
-            .design
-            .file_stem()
-            .map_or_else(|| "design".into(), |s| s.to_string_lossy().to_string());
-        if shards > 1 {
-            PathBuf::from(format!("{stem}-spread-{shard}-of-{shards}"))
-        } else {
-            PathBuf::from(format!("{stem}-spread"))
-        }
-    });
-    if out_dir.is_file() {
-        return Err(Failure::input(format!(
-            "-o {}: that is a file; -o takes a directory (made if missing)",
-            out_dir.display()
-        )));
-    }
+    let out_dir = p.out_dir.clone();
     let mut staging = Staging::default();
     let samples_path = out_dir.join("samples.csv");
     let h = staging.create(&samples_path)?;
@@ -160,7 +114,7 @@ pub fn run_spread(args: &SpreadArgs) -> Result<u8, Failure> {
     spread::write_samples_header(&mut head, &state)
         .map_err(|e| Failure::output(format!("{target}: {e}")))?;
     let in_shard = (args.samples - shard).div_ceil(shards);
-    let bar = (!args.quiet && std::io::stderr().is_terminal()).then(|| {
+    let bar = (!args.common.quiet && std::io::stderr().is_terminal()).then(|| {
         let b = indicatif::ProgressBar::new(in_shard);
         b.set_style(
             indicatif::ProgressStyle::with_template(
@@ -195,7 +149,7 @@ pub fn run_spread(args: &SpreadArgs) -> Result<u8, Failure> {
             .map_err(|e| Failure::output(format!("partial.json: {e}")))?;
         staging.bytes(&out_dir.join("partial.json"), &json)?;
         let written = staging.commit()?;
-        if !args.quiet {
+        if !args.common.quiet {
             println!(
                 "shard {shard}/{shards}: {} of {} samples in {:.2} s; merge the shards with `analyzer merge DIR... -o OUT`",
                 state.done,
@@ -210,8 +164,8 @@ pub fn run_spread(args: &SpreadArgs) -> Result<u8, Failure> {
         &state,
         staging,
         &out_dir,
-        args.no_plot,
-        args.quiet,
+        args.common.no_plot,
+        args.common.quiet,
         Some(took),
     )
 }

@@ -865,6 +865,46 @@ mod tests {
     }
 }
 
+type LevelChart<'b> = ChartContext<
+    'b,
+    SVGBackend<'b>,
+    Cartesian2d<
+        plotters::coord::combinators::LogCoord<f64>,
+        plotters::coord::types::RangedCoordf64,
+    >,
+>;
+
+/// A single panel over log frequency with a linear axis of levels, its grid and labels drawn.
+fn level_chart<'b>(
+    body: &SvgArea<'b>,
+    (f0, f1): (f64, f64),
+    (y0, y1): (f64, f64),
+    label: &str,
+) -> Result<LevelChart<'b>, PlotError> {
+    let mut chart = ChartBuilder::on(body)
+        .margin_left(12)
+        .margin_right(24)
+        .margin_top(6)
+        .margin_bottom(6)
+        .x_label_area_size(40)
+        .y_label_area_size(78)
+        .build_cartesian_2d((f0..f1).log_scale(), y0..y1)
+        .map_err(perr)?;
+    chart
+        .configure_mesh()
+        .y_desc(label.to_string())
+        .x_desc("frequency (Hz)")
+        .light_line_style(MINOR)
+        .bold_line_style(DECADE)
+        .axis_style(INK)
+        .label_style(("sans-serif", 13).into_font().color(&INK))
+        .x_label_formatter(&|f| tidy_label(format_eng(*f, 3, "Hz")))
+        .y_label_formatter(&|v| tidy_label(format_eng(*v, 3, "")))
+        .draw()
+        .map_err(perr)?;
+    Ok(chart)
+}
+
 /// What an envelope plot shows: a tolerance study's spread of |H| with the nominal trace.
 #[derive(Clone, Debug)]
 pub struct EnvelopePlot<'a> {
@@ -909,27 +949,7 @@ pub fn render_envelope_svg(input: &EnvelopePlot<'_>) -> Result<String, PlotError
     {
         let root = SVGBackend::with_string(&mut svg, (960, 520)).into_drawing_area();
         let body = titled(&root, &input.title)?;
-        let mut chart = ChartBuilder::on(&body)
-            .margin_left(12)
-            .margin_right(24)
-            .margin_top(6)
-            .margin_bottom(6)
-            .x_label_area_size(40)
-            .y_label_area_size(78)
-            .build_cartesian_2d((f0..f1).log_scale(), y0..y1)
-            .map_err(perr)?;
-        chart
-            .configure_mesh()
-            .y_desc(input.label.clone())
-            .x_desc("frequency (Hz)")
-            .light_line_style(MINOR)
-            .bold_line_style(DECADE)
-            .axis_style(INK)
-            .label_style(("sans-serif", 13).into_font().color(&INK))
-            .x_label_formatter(&|f| tidy_label(format_eng(*f, 3, "Hz")))
-            .y_label_formatter(&|v| tidy_label(format_eng(*v, 3, "")))
-            .draw()
-            .map_err(perr)?;
+        let mut chart = level_chart(&body, (f0, f1), (y0, y1), &input.label)?;
         let band = |lo: &[f64], hi: &[f64]| -> Vec<(f64, f64)> {
             let mut pts: Vec<(f64, f64)> = keep.iter().map(|&k| (e.freqs[k], hi[k])).collect();
             pts.extend(keep.iter().rev().map(|&k| (e.freqs[k], lo[k])));
@@ -997,6 +1017,85 @@ pub fn render_envelope_svg(input: &EnvelopePlot<'_>) -> Result<String, PlotError
             .map_err(perr)?
             .label("nominal")
             .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], TRACE.stroke_width(2)));
+        chart
+            .configure_series_labels()
+            .background_style(WHITE.mix(0.85))
+            .border_style(MINOR)
+            .label_font(("sans-serif", 12).into_font().color(&INK))
+            .position(SeriesLabelPosition::LowerLeft)
+            .draw()
+            .map_err(perr)?;
+        root.present().map_err(perr)?;
+    }
+    Ok(svg)
+}
+
+/// Several labelled traces on one log-frequency axis (variants of a design, sensitivities).
+#[derive(Clone, Debug)]
+pub struct LinesPlot<'a> {
+    /// Title line.
+    pub title: String,
+    /// Axis label with unit.
+    pub label: String,
+    /// (legend label, (frequency, value) points ascending), drawn in this order.
+    pub series: &'a [(String, Vec<(f64, f64)>)],
+    /// A horizontal reference line (e.g. 0 for a sensitivity), where wanted.
+    pub zero_line: bool,
+}
+
+/// Renders several traces over log frequency with a legend; the first is drawn bold.
+pub fn render_lines_svg(input: &LinesPlot<'_>) -> Result<String, PlotError> {
+    let pts = || {
+        input
+            .series
+            .iter()
+            .flat_map(|s| s.1.iter())
+            .filter(|p| p.0 > 0.0 && p.1.is_finite())
+    };
+    let (f0, f1) = pts().fold((f64::INFINITY, 0.0f64), |(a, b), p| {
+        (a.min(p.0), b.max(p.0))
+    });
+    if !(f0.is_finite() && f1 > f0) {
+        return Err(PlotError(
+            "a plot over frequency needs two frequencies above 0 Hz".into(),
+        ));
+    }
+    let ys: Vec<f64> = pts()
+        .map(|p| p.1)
+        .chain(input.zero_line.then_some(0.0))
+        .collect();
+    let (y0, y1) = padded_range(&ys, 0.1);
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, (960, 520)).into_drawing_area();
+        let body = titled(&root, &input.title)?;
+        let mut chart = level_chart(&body, (f0, f1), (y0, y1), &input.label)?;
+        if input.zero_line {
+            chart
+                .draw_series(LineSeries::new([(f0, 0.0), (f1, 0.0)], INK.stroke_width(1)))
+                .map_err(perr)?;
+        }
+        for (k, (name, points)) in input.series.iter().enumerate() {
+            let colour = if k == 0 {
+                TRACE
+            } else {
+                CONTRIBUTOR_COLOURS[(k - 1) % CONTRIBUTOR_COLOURS.len()]
+            };
+            let width = if k == 0 { 3 } else { 2 };
+            chart
+                .draw_series(LineSeries::new(
+                    points
+                        .iter()
+                        .copied()
+                        .filter(|p| p.0 > 0.0 && p.1.is_finite()),
+                    colour.stroke_width(width),
+                ))
+                .map_err(perr)?
+                .label(name.clone())
+                .legend(move |(x, y)| {
+                    PathElement::new(vec![(x, y), (x + 18, y)], colour.stroke_width(width))
+                });
+        }
         chart
             .configure_series_labels()
             .background_style(WHITE.mix(0.85))

@@ -48,6 +48,7 @@
     deny(clippy::unwrap_used, clippy::expect_used, clippy::panic)
 )]
 
+pub mod corners;
 pub mod design;
 pub mod export;
 #[doc(hidden)]
@@ -58,10 +59,13 @@ pub mod names;
 pub mod network;
 pub mod noise;
 pub mod poles;
+pub mod preferred;
 pub mod response;
+pub mod sensitivity;
 pub mod solve;
 pub mod spread;
 pub mod stamp;
 pub mod sweep;
 pub mod topology;
 pub mod units;
+pub mod variants;

@@ -12,7 +12,7 @@
 //! `A·x = b` with `A = G + jωC` gives `dx/dω = −A⁻¹·(jC)·x`; group delay is
 //! `τ = −Im(H′/H)` (see [`Point::group_delay`]).
 
-use crate::network::{Network, NodeId, PartId, PartKind};
+use crate::network::{Network, NodeId, Param, PartId, PartKind};
 use crate::noise::{Breakdown, NoisePlan};
 use crate::solve::{LaneSolver, SolveFailure, SolverKind, SolverPlan, LANES};
 use crate::stamp::{Readout, System};
@@ -818,6 +818,119 @@ impl<'a> Evaluator<'a> {
         let mut parts = Vec::with_capacity(plan.sources.len());
         let total = plan.contributions(f, &ws.ys, scale, &mut parts);
         Ok(Breakdown { total, parts })
+    }
+
+    /// Response `index` at `f` (with its ω-derivative) and its normalised sensitivity
+    /// `∂ln H/∂ln p` to each value of `params`, by the adjoint method: the solve at `f` that
+    /// every response shares, one transposed solve `(G + jωC)ᵀ·y = q_N/N − q_D/D` (the
+    /// read-outs over their values), then per value only sparse products:
+    /// `∂ln H/∂ln p = yᵀ·(∂b − ∂A·x)` plus the change of a read-out that is the value's own
+    /// current. `Re S` is the relative change of |H| per relative change of p, `Im S` the
+    /// change of phase in radians. Noise responses have none.
+    pub fn sensitivities(
+        &self,
+        ws: &mut Workspace<'a>,
+        f: Hertz,
+        index: usize,
+        params: &[(PartId, Param)],
+    ) -> Result<(Point, Vec<Complex64>), AnalysisError> {
+        let a = self.analysis;
+        let spec = a.specs.get(index);
+        let bad = |reason: &str| AnalysisError::BadResponse {
+            response: spec.map_or_else(String::new, |s| s.name.clone()),
+            reason: reason.into(),
+        };
+        let r = a
+            .resolved
+            .get(index)
+            .ok_or_else(|| bad("is not a response of this analysis"))?;
+        if r.noise.is_some() {
+            return Err(bad(
+                "is a noise response; sensitivities are computed for ratios, impedances and admittances",
+            ));
+        }
+        let point = self.at(ws, f, true)?[index];
+        let n = a.sys.n;
+        let omega = 2.0 * PI * f;
+        let x: Vec<Complex64> = ws.xs[r.excitation].get(..n).unwrap_or_default().to_vec();
+        let design = a.excitations.get(r.excitation) == Some(&Excitation::Design);
+        let num = r.numerator.eval(&x, omega, design);
+        let den = r
+            .denominator
+            .as_ref()
+            .map_or(Complex64::new(1.0, 0.0), |d| d.eval(&x, omega, design));
+        let mut w = vec![Complex64::default(); n];
+        let jw = Complex64::new(0.0, omega);
+        let mut put = |ro: &Readout, scale: Complex64| {
+            for &(i, g) in &ro.g {
+                if let Some(slot) = w.get_mut(i) {
+                    *slot += scale * g;
+                }
+            }
+            for &(i, c) in &ro.c {
+                if let Some(slot) = w.get_mut(i) {
+                    *slot += scale * jw * c;
+                }
+            }
+        };
+        put(&r.numerator, num.inv());
+        if let Some(d) = &r.denominator {
+            put(d, -den.inv());
+        }
+        ws.ys.resize(n, Complex64::default());
+        ws.one
+            .solve_transposed_checked(&w, &mut ws.ys)
+            .map_err(|_| AnalysisError::Untrustworthy {
+                frequency: f,
+                residual: f64::INFINITY,
+            })?;
+        let y = &ws.ys;
+        let probes = match spec.map(|s| &s.kind) {
+            Some(ResponseKind::Ratio {
+                numerator,
+                denominator,
+            }) => (Some(numerator), Some(denominator)),
+            _ => (None, None),
+        };
+        // The share of a read-out that is not a source's constant (it scales with p).
+        let varying = |ro: &Readout, v: Complex64| {
+            let c = if design {
+                ro.constant
+            } else {
+                Complex64::default()
+            };
+            v - c
+        };
+        let mut out = Vec::with_capacity(params.len());
+        for &(part, param) in params {
+            let (entries, rhs) = a.sys.derivative(&a.net, part, param);
+            let mut t = Complex64::default();
+            if design {
+                for (i, v) in rhs {
+                    t += y.get(i).copied().unwrap_or_default() * v;
+                }
+            }
+            for (row, col, dg, dc) in entries {
+                let (yi, xj) = (
+                    y.get(row).copied().unwrap_or_default(),
+                    x.get(col).copied().unwrap_or_default(),
+                );
+                t -= yi * Complex64::new(dg, omega * dc) * xj;
+            }
+            let e = System::readout_exponent(&a.net, part, param);
+            if e != 0.0 {
+                if probes.0 == Some(&Probe::Current(part)) {
+                    t += e * varying(&r.numerator, num) / num;
+                }
+                if let (Some(Probe::Current(q)), Some(d)) = (probes.1, &r.denominator) {
+                    if *q == part {
+                        t -= e * varying(d, den) / den;
+                    }
+                }
+            }
+            out.push(if r.invert { -t } else { t });
+        }
+        Ok((point, out))
     }
 
     /// The noise plan of response `index`, if it is a noise response.

@@ -16,7 +16,7 @@
 //! with `v_out = x` (single pole). `G`, `C` and `b` do not depend on ω: they are assembled
 //! once and every frequency point only forms `G + jωC`.
 
-use crate::network::{Network, NodeId, PartId, PartKind};
+use crate::network::{Network, NodeId, Param, PartId, PartKind};
 use num_complex::Complex64;
 use std::f64::consts::PI;
 
@@ -288,6 +288,170 @@ impl System {
             PartKind::Coupling { .. } | PartKind::Cccs { .. } => return None,
         }
         Some(r)
+    }
+
+    /// How a part's current read-out scales with its value `param`: as 1/R for a resistor
+    /// (−1), as C for a capacitor and gm for a vccs (+1), not at all otherwise (0). The
+    /// read-outs of responses and of current-controlled sources follow this.
+    pub fn readout_exponent(net: &Network, part: PartId, param: Param) -> f64 {
+        match (net.part(part).map(|p| &p.kind), param) {
+            (Some(PartKind::Resistor { .. }), Param::Main) => -1.0,
+            (Some(PartKind::Capacitor { .. } | PartKind::Vccs { .. }), Param::Main) => 1.0,
+            _ => 0.0,
+        }
+    }
+
+    /// The derivative of the system with respect to the log of one value,
+    /// `∂(G, C, b)/∂ln p`: the entries `(row, column, ∂g, ∂c)` (unsorted; a position may
+    /// repeat, the entries then add) and the changed right-hand-side entries. Exact: each
+    /// stamp is linear in p or in 1/p, except a coupling's M = k·√(L1·L2), whose derivative
+    /// with respect to ln L1 is M/2. Includes the parts that depend on this one (couplings
+    /// of an inductor, sources controlled by a resistor's, capacitor's or vccs's current).
+    #[allow(clippy::type_complexity)]
+    pub fn derivative(
+        &self,
+        net: &Network,
+        part: PartId,
+        param: Param,
+    ) -> (Vec<(usize, usize, f64, f64)>, Vec<(usize, Complex64)>) {
+        let mut st = Stamper {
+            triplets: Vec::new(),
+            b: vec![Complex64::default(); self.n],
+        };
+        let Some(p) = net.part(part) else {
+            return (Vec::new(), Vec::new());
+        };
+        let k = self.branch_of(part);
+        let state = self
+            .unknowns
+            .iter()
+            .position(|u| *u == Unknown::OpampState(part));
+        let inductance = |q: PartId| match net.part(q).map(|p| &p.kind) {
+            Some(PartKind::Inductor { henries, .. }) => *henries,
+            _ => 0.0,
+        };
+        match (&p.kind, param) {
+            (&PartKind::Resistor { a, b, ohms }, Param::Main) => {
+                st.admittance(a, b, -1.0 / ohms, false)
+            }
+            (&PartKind::Capacitor { a, b, farads }, Param::Main) => {
+                st.admittance(a, b, farads, true)
+            }
+            (&PartKind::Inductor { henries, .. }, Param::Main) => st.c(k, k, -henries),
+            (
+                &PartKind::Coupling {
+                    first,
+                    second,
+                    k: kc,
+                },
+                Param::Main,
+            ) => {
+                let m = kc * (inductance(first) * inductance(second)).sqrt();
+                let (k1, k2) = (self.branch_of(first), self.branch_of(second));
+                st.c(k1, k2, -m);
+                st.c(k2, k1, -m);
+            }
+            (&PartKind::Vcvs { cp, cn, gain, .. }, Param::Main) => {
+                st.g(k, idx(cp), -gain);
+                st.g(k, idx(cn), gain);
+            }
+            (
+                &PartKind::Vccs {
+                    from,
+                    to,
+                    cp,
+                    cn,
+                    gm,
+                },
+                Param::Main,
+            ) => {
+                let (f, t) = (idx(from), idx(to));
+                st.g(f, idx(cp), gm);
+                st.g(f, idx(cn), -gm);
+                st.g(t, idx(cp), -gm);
+                st.g(t, idx(cn), gm);
+            }
+            (&PartKind::Ccvs { control, rm, .. }, Param::Main) => {
+                if let Some(ro) = self.current_readout(net, control) {
+                    st.readout_into(k, &ro, -rm);
+                }
+            }
+            (
+                &PartKind::Cccs {
+                    from,
+                    to,
+                    control,
+                    gain,
+                },
+                Param::Main,
+            ) => {
+                if let Some(ro) = self.current_readout(net, control) {
+                    st.readout_into(idx(from), &ro, gain);
+                    st.readout_into(idx(to), &ro, -gain);
+                }
+            }
+            (
+                &PartKind::SinglePoleOpamp {
+                    noninverting,
+                    inverting,
+                    dc_gain,
+                    gbw,
+                    ..
+                },
+                Param::Main,
+            ) => {
+                st.c(state, state, dc_gain / (2.0 * PI * gbw));
+                st.g(state, idx(noninverting), -dc_gain);
+                st.g(state, idx(inverting), dc_gain);
+            }
+            (&PartKind::SinglePoleOpamp { dc_gain, gbw, .. }, Param::Gbw) => {
+                st.c(state, state, -dc_gain / (2.0 * PI * gbw));
+            }
+            _ => {}
+        }
+        // The parts whose stamps read this one's value.
+        let exponent = Self::readout_exponent(net, part, param);
+        let is_inductor = matches!(p.kind, PartKind::Inductor { .. }) && param == Param::Main;
+        for (j, other) in net.parts().iter().enumerate() {
+            match other.kind {
+                PartKind::Coupling {
+                    first,
+                    second,
+                    k: kc,
+                } if is_inductor && (first == part || second == part) => {
+                    // M = k·√(L1·L2): ∂M/∂ln L1 = M/2 (M for a coupling of L with itself).
+                    let m = kc * (inductance(first) * inductance(second)).sqrt();
+                    let share = if first == second { 1.0 } else { 0.5 };
+                    let (k1, k2) = (self.branch_of(first), self.branch_of(second));
+                    st.c(k1, k2, -m * share);
+                    st.c(k2, k1, -m * share);
+                }
+                PartKind::Ccvs { control, rm, .. } if control == part && exponent != 0.0 => {
+                    if let Some(ro) = self.current_readout(net, part) {
+                        st.readout_into(self.branch_of(PartId(j)), &ro, -rm * exponent);
+                    }
+                }
+                PartKind::Cccs {
+                    from,
+                    to,
+                    control,
+                    gain,
+                } if control == part && exponent != 0.0 => {
+                    if let Some(ro) = self.current_readout(net, part) {
+                        st.readout_into(idx(from), &ro, gain * exponent);
+                        st.readout_into(idx(to), &ro, -gain * exponent);
+                    }
+                }
+                _ => {}
+            }
+        }
+        let rhs =
+            st.b.iter()
+                .enumerate()
+                .filter(|(_, v)| v.norm() != 0.0)
+                .map(|(i, v)| (i, *v))
+                .collect();
+        (st.triplets, rhs)
     }
 
     /// Right-hand side of a 1 A test current into node `a` and out of node `b`, all the

@@ -201,3 +201,31 @@ gain = {{ ratio = ["out", "src"] }}
 "#
     )
 }
+
+/// A third-order doubly terminated LC low-pass (about 1 MHz, 50 Ω) with tolerances on every
+/// part and two limits: the design the tolerance and sensitivity checks share.
+pub const LADDER_WITH_LIMITS: &str = r#"
+title = "third-order ladder with limits"
+[sweep]
+from = "1 kHz"
+to = "10 MHz"
+per_decade = 30
+[tolerances]
+resistor = "1%"
+capacitor = "5%"
+inductor = "10%"
+distribution = "normal"
+[parts]
+V1 = { voltage = "1", between = ["src", "gnd"] }
+Rs = { resistor = "50", between = ["src", "a"] }
+C1 = { capacitor = "3.18n", between = ["a", "gnd"] }
+L2 = { inductor = "15.9u", between = ["a", "b"] }
+C3 = { capacitor = "3.18n", between = ["b", "gnd"] }
+RL = { resistor = "50", between = ["b", "gnd"] }
+[responses]
+gain = { ratio = ["b", "src"] }
+zin = { impedance = ["a", "gnd"] }
+[limits]
+flat = { response = "gain", from = "1 kHz", to = "400 kHz", min_db = -6.6, max_db = -5.9 }
+stop = { response = "gain", from = "4 MHz", to = "10 MHz", max_db = -40 }
+"#;

@@ -422,3 +422,52 @@ fn the_resonant_networks_have_high_q_poles() {
         pz.rows()
     );
 }
+
+proptest! {
+    #![proptest_config(ProptestConfig { cases: 32, ..ProptestConfig::default() })]
+
+    /// The adjoint sensitivities ∂ln H/∂ln p (one transposed solve) equal the central
+    /// difference of ln H with each value changed and the network re-solved, for every value
+    /// of random active networks (the response reads the source's own current too, so the
+    /// read-out's share is exercised).
+    #[test]
+    fn adjoint_sensitivities_match_finite_differences(
+        nodes in 2usize..7,
+        tree in prop::collection::vec(0.0f64..1.0, 6),
+        els in elements(),
+        f in 1.0f64..6.0,
+    ) {
+        let f = 10f64.powf(f);
+        let Some(net) = build(nodes, &tree, &els, true, Some(1)) else { return Ok(()) };
+        let Ok(a) = Analysis::new(net.clone(), any_ratio(&net)) else { return Ok(()) };
+        let ev = a.evaluator().unwrap();
+        let values = analyzer_core::sensitivity::values(&ev);
+        let mut ws = ev.workspace();
+        let Ok((p, s)) = analyzer_core::sensitivity::at(&ev, &mut ws, f, 0, &values) else {
+            return Ok(());
+        };
+        // A value the response barely depends on, and an ill-conditioned network, make the
+        // difference quotient noisy: the tolerance scales with the condition estimate.
+        let h: f64 = 1e-5;
+        for (k, v) in values.iter().enumerate() {
+            let lnh = |x: f64| -> Option<Complex64> {
+                let b = a.with_values(&[(v.part, v.param, x)]).ok()?;
+                let e = b.evaluator().ok()?;
+                let mut w = e.workspace();
+                Some(e.at(&mut w, f, false).ok()?[0].value.ln())
+            };
+            let (Some(up), Some(down)) = (lnh(v.nominal * h.exp()), lnh(v.nominal * (-h).exp()))
+            else {
+                continue;
+            };
+            let d = up - down;
+            let wrapped = Complex64::new(d.re, (d.im + PI).rem_euclid(2.0 * PI) - PI);
+            let fd = wrapped / (2.0 * h);
+            prop_assert!(
+                (s[k] - fd).norm() <= 1e-5 * (1.0 + fd.norm() + s[k].norm()),
+                "{}: adjoint {} vs difference {fd} at {f} Hz (|H| = {})",
+                v.name, s[k], p.value.norm()
+            );
+        }
+    }
+}

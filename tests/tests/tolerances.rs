@@ -228,37 +228,8 @@ fn sample_values_depend_on_seed_and_index_alone_and_stay_inside() {
     );
 }
 
-fn ladder_study_text() -> String {
-    r#"
-title = "third-order ladder with limits"
-[sweep]
-from = "1 kHz"
-to = "10 MHz"
-per_decade = 30
-[tolerances]
-resistor = "1%"
-capacitor = "5%"
-inductor = "10%"
-distribution = "normal"
-[parts]
-V1 = { voltage = "1", between = ["src", "gnd"] }
-Rs = { resistor = "50", between = ["src", "a"] }
-C1 = { capacitor = "3.18n", between = ["a", "gnd"] }
-L2 = { inductor = "15.9u", between = ["a", "b"] }
-C3 = { capacitor = "3.18n", between = ["b", "gnd"] }
-RL = { resistor = "50", between = ["b", "gnd"] }
-[responses]
-gain = { ratio = ["b", "src"] }
-zin = { impedance = ["a", "gnd"] }
-[limits]
-flat = { response = "gain", from = "1 kHz", to = "400 kHz", min_db = -6.6, max_db = -5.9 }
-stop = { response = "gain", from = "4 MHz", to = "10 MHz", max_db = -40 }
-"#
-    .into()
-}
-
 fn ladder_study_outputs(shards: u64, threads: usize) -> (String, Vec<u8>, Vec<u8>) {
-    let d = design::parse(&ladder_study_text()).unwrap();
+    let d = design::parse(reference_suite::LADDER_WITH_LIMITS).unwrap();
     let grid = d.sweep.grid().unwrap();
     let limits = d.limits.clone();
     let analysis = Analysis::new(d.network, d.responses).unwrap();
@@ -327,7 +298,7 @@ fn same_seed_same_bytes_on_one_and_two_threads_and_shards_merge_to_one_run() {
 
 #[test]
 fn a_restamped_evaluator_equals_a_fresh_one_on_every_solver_path() {
-    let d = design::parse(&ladder_study_text()).unwrap();
+    let d = design::parse(reference_suite::LADDER_WITH_LIMITS).unwrap();
     let base = Analysis::new(d.network, d.responses).unwrap();
     let varied = base.network().varied();
     let changes: Vec<_> = varied
@@ -360,4 +331,86 @@ fn a_restamped_evaluator_equals_a_fresh_one_on_every_solver_path() {
             like.at(&mut w1, 1e6, false).unwrap()[0].value
         );
     }
+}
+
+#[test]
+fn preferred_series_are_those_of_iec_60063() {
+    use analyzer_core::preferred::Series;
+    // IEC 60063 (from memory): E6, E12 and E24 are tabulated two-figure series; E48 is the
+    // three-figure series below.
+    let e6 = [1.0, 1.5, 2.2, 3.3, 4.7, 6.8];
+    let e12 = [1.0, 1.2, 1.5, 1.8, 2.2, 2.7, 3.3, 3.9, 4.7, 5.6, 6.8, 8.2];
+    let e24 = [
+        1.0, 1.1, 1.2, 1.3, 1.5, 1.6, 1.8, 2.0, 2.2, 2.4, 2.7, 3.0, 3.3, 3.6, 3.9, 4.3, 4.7, 5.1,
+        5.6, 6.2, 6.8, 7.5, 8.2, 9.1,
+    ];
+    let e48 = [
+        1.00, 1.05, 1.10, 1.15, 1.21, 1.27, 1.33, 1.40, 1.47, 1.54, 1.62, 1.69, 1.78, 1.87, 1.96,
+        2.05, 2.15, 2.26, 2.37, 2.49, 2.61, 2.74, 2.87, 3.01, 3.16, 3.32, 3.48, 3.65, 3.83, 4.02,
+        4.22, 4.42, 4.64, 4.87, 5.11, 5.36, 5.62, 5.90, 6.19, 6.49, 6.81, 7.15, 7.50, 7.87, 8.25,
+        8.66, 9.09, 9.53,
+    ];
+    assert_eq!(Series::E6.mantissas(), e6);
+    assert_eq!(Series::E12.mantissas(), e12);
+    assert_eq!(Series::E24.mantissas(), e24);
+    assert_eq!(Series::E48.mantissas(), e48);
+    // Familiar E96 members (from memory) and E192's one exception, 9.20 (the rounding gives
+    // 9.19).
+    let e96 = Series::E96.mantissas();
+    for v in [1.02, 1.24, 2.49, 3.32, 4.99, 6.04, 8.06, 9.76] {
+        assert!(e96.contains(&v), "{v} not in E96");
+    }
+    let e192 = Series::E192.mantissas();
+    assert_eq!(e192[185], 9.20);
+    assert!(e192.contains(&9.31) && e192.len() == 192);
+    // Each finer three-figure series contains the coarser; the two-figure ones are not
+    // rounded geometric values (10^(10/24) = 2.61, the series has 2.7).
+    assert!(e48.iter().all(|v| e96.contains(v)) && e96.iter().all(|v| e192.contains(v)));
+    assert!((10f64.powf(10.0 / 24.0) * 10.0).round() / 10.0 != e24[10]);
+    // Nearest in log distance: the geometric midpoint of 1.0 and 1.5 is 1.2247.
+    assert_eq!(Series::E6.nearest(1.22e3), 1.0e3);
+    assert_eq!(Series::E6.nearest(1.23e3), 1.5e3);
+    assert_eq!(Series::E12.nearest(4.6e-9), 4.7e-9);
+    assert_eq!(Series::E24.nearest(9.6), 10.0);
+    assert_eq!(Series::E96.nearest(49.5e3), 49.9e3);
+    assert!("E7".parse::<Series>().is_err());
+}
+
+#[test]
+fn worst_corner_of_an_rc_ceiling_is_both_values_low_and_matches_the_closed_form() {
+    // A ceiling on |H| above the cut-off: |H| = 1/√(1 + (ωRC)²) (closed form) is highest
+    // with R and C both at the low end of their tolerances, and the verified margin is the
+    // closed form's at that corner.
+    let (analysis, grid) = rc("2%", "5%");
+    let ev = analysis.evaluator().unwrap();
+    let f = 20e3;
+    let limit = Limit {
+        name: "stop".into(),
+        response: "gain".into(),
+        from: f,
+        to: 1e6,
+        min_db: None,
+        max_db: Some(-20.0),
+    };
+    let opts = [MetricOptions::default()];
+    let nominal = analyzer_core::metrics::assess(&ev, &grid, &opts, &[limit]).unwrap();
+    let values: Vec<_> = analyzer_core::sensitivity::values(&ev);
+    let found = analyzer_core::corners::worst_case(&ev, &grid, &opts, &nominal, &values).unwrap();
+    let c = &found[0];
+    assert_eq!(c.deviations, vec![-0.02, -0.05]);
+    let w = 2.0 * std::f64::consts::PI * f;
+    let rc_low = 4.7e3 * 0.98 * 22e-9 * 0.95;
+    let db = -10.0 * (1.0 + (w * rc_low).powi(2)).log10();
+    assert!(
+        (c.margin_db - (-20.0 - db)).abs() < 1e-9,
+        "{} vs {}",
+        c.margin_db,
+        -20.0 - db
+    );
+    assert!((c.worst_hz - f).abs() < 1e-9 * f);
+    assert!(
+        !c.prediction_off,
+        "prediction {} vs {}",
+        c.predicted_margin_db, c.margin_db
+    );
 }

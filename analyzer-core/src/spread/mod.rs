@@ -181,6 +181,57 @@ impl Pick {
     }
 }
 
+/// The scalar figures of a design followed from one network to another (samples, variants,
+/// a snapped design): every figure the reference network has, each found again in another
+/// network by kind and, for peaks, notches, resonances and poles, by the nearest frequency;
+/// and each limit's worst margin.
+#[derive(Clone, Debug)]
+pub struct Followed {
+    keys: Vec<Key>,
+}
+
+impl Followed {
+    /// What to follow, from the reference network's assessment.
+    pub fn of(reference: &Assessment) -> Self {
+        let mut keys = Vec::new();
+        for (r, f) in reference.figures.iter().enumerate() {
+            keys.extend(keys_of(r, f));
+        }
+        for (k, c) in reference.checks.iter().enumerate() {
+            keys.push(Key {
+                name: format!("limit.{}.margin_db", c.limit.name),
+                unit: "dB",
+                response: None,
+                pick: None,
+                limit: k,
+            });
+        }
+        Followed { keys }
+    }
+
+    /// The names (`response.figure`, `limit.NAME.margin_db`).
+    pub fn names(&self) -> Vec<&str> {
+        self.keys.iter().map(|k| k.name.as_str()).collect()
+    }
+
+    /// The unit symbols.
+    pub fn units(&self) -> Vec<&'static str> {
+        self.keys.iter().map(|k| k.unit).collect()
+    }
+
+    /// The values in another assessment of the same design (NaN where absent).
+    pub fn values(&self, a: &Assessment) -> Vec<f64> {
+        self.keys
+            .iter()
+            .map(|k| match (k.response, k.pick) {
+                (Some(r), Some(p)) => a.figures.get(r).and_then(|f| p.get(f)),
+                _ => a.checks.get(k.limit).map(|c| c.worst_margin_db),
+            })
+            .map(|v| v.filter(|x| !x.is_nan()).unwrap_or(f64::NAN))
+            .collect()
+    }
+}
+
 /// The scalars followed for one response: every figure its nominal has.
 fn keys_of(r: usize, f: &Figures) -> Vec<Key> {
     let mut out = Vec::new();
@@ -297,7 +348,7 @@ pub struct Study<'e, 'a> {
     opts: Vec<MetricOptions>,
     limits: Vec<Limit>,
     varied: Vec<Varied>,
-    keys: Vec<Key>,
+    followed: Followed,
     seed: u64,
     nominal: Assessment,
     nominal_phase: Vec<Vec<f64>>,
@@ -347,19 +398,7 @@ impl<'e, 'a> Study<'e, 'a> {
             return Err(SpreadError::NoTolerances);
         }
         let nominal = metrics::assess(ev, grid, &opts, &limits)?;
-        let mut keys = Vec::new();
-        for (r, f) in nominal.figures.iter().enumerate() {
-            keys.extend(keys_of(r, f));
-        }
-        for (k, l) in limits.iter().enumerate() {
-            keys.push(Key {
-                name: format!("limit.{}.margin_db", l.name),
-                unit: "dB",
-                response: None,
-                pick: None,
-                limit: k,
-            });
-        }
+        let followed = Followed::of(&nominal);
         let nominal_phase = nominal
             .values
             .iter()
@@ -372,7 +411,7 @@ impl<'e, 'a> Study<'e, 'a> {
             opts,
             limits,
             varied,
-            keys,
+            followed,
             seed,
             nominal,
             nominal_phase,
@@ -406,14 +445,7 @@ impl<'e, 'a> Study<'e, 'a> {
     }
 
     fn scalars(&self, a: &Assessment) -> Vec<f64> {
-        self.keys
-            .iter()
-            .map(|k| match (k.response, k.pick) {
-                (Some(r), Some(p)) => a.figures.get(r).and_then(|f| p.get(f)),
-                _ => a.checks.get(k.limit).map(|c| c.worst_margin_db),
-            })
-            .map(|v| v.filter(|x| !x.is_nan()).unwrap_or(f64::NAN))
-            .collect()
+        self.followed.values(a)
     }
 
     /// Evaluates sample `i`.
@@ -456,7 +488,7 @@ impl<'e, 'a> Study<'e, 'a> {
             Err(e) => Outcome {
                 index: i,
                 values,
-                scalars: vec![f64::NAN; self.keys.len()],
+                scalars: vec![f64::NAN; self.followed.keys.len()],
                 passes: vec![false; self.limits.len()],
                 error: Some(e.to_string()),
                 db: Vec::new(),
@@ -504,6 +536,7 @@ impl<'e, 'a> Study<'e, 'a> {
             parts: self.varied_names(),
             responses,
             figures: self
+                .followed
                 .keys
                 .iter()
                 .zip(nominal_scalars)

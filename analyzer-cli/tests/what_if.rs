@@ -1,0 +1,132 @@
+//! `analyzer sensitivity`, `corners` and `variants` through the real binary.
+
+use assert_cmd::Command;
+use std::path::{Path, PathBuf};
+
+fn analyzer() -> Command {
+    Command::cargo_bin("analyzer").expect("binary")
+}
+
+fn example() -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join("../sweeps/soil-probe-antialias.toml")
+}
+
+fn stdout(c: &mut Command) -> String {
+    let out = c.assert().success();
+    String::from_utf8_lossy(&out.get_output().stdout).to_string()
+}
+
+#[test]
+fn sensitivity_ranks_the_values_and_writes_curves() {
+    let tmp = tempfile::tempdir().unwrap();
+    let text = stdout(
+        analyzer()
+            .args(["sensitivity", "--curves", "--at", "10 kHz", "-o"])
+            .arg(tmp.path())
+            .arg(example()),
+    );
+    // The unity-gain Sallen–Key section's f0 moves as −1/2 of every R and C (closed form
+    // ω0 = 1/√(R1R2C1C2)); the 50 Ω source resistor barely matters.
+    let line = text
+        .lines()
+        .find(|l| l.trim_start().starts_with("pole pair 1 f0"))
+        .unwrap();
+    assert!(line.contains("-0.500"), "{line}");
+    let csv = std::fs::read_to_string(tmp.path().join("gain-sensitivity.csv")).unwrap();
+    assert!(csv.starts_with("frequency_hz,Rs_db_per_pct,Rs_deg_per_pct,R1_db_per_pct"));
+    assert!(tmp.path().join("gain-sensitivity.svg").exists());
+    let json: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(tmp.path().join("sensitivity.json")).unwrap())
+            .unwrap();
+    assert_eq!(json["values"][1]["name"], "R1");
+}
+
+#[test]
+fn corners_verify_each_limit_and_variants_sit_side_by_side() {
+    let tmp = tempfile::tempdir().unwrap();
+    let text = stdout(
+        analyzer()
+            .args(["corners", "-o"])
+            .arg(tmp.path().join("c"))
+            .arg(example()),
+    );
+    assert!(
+        text.contains("alias_band") && text.contains("C1 −5%"),
+        "{text}"
+    );
+    let text = stdout(
+        analyzer()
+            .args(["variants", "--step", "R2=10k,12k", "-q", "-o"])
+            .arg(tmp.path().join("v"))
+            .arg(example()),
+    );
+    assert!(text.is_empty());
+    let v = tmp.path().join("v");
+    for f in [
+        "gain@R2_10.00k.csv",
+        "gain@R2_12.00k.csv",
+        "gain-variants.svg",
+        "variants.json",
+    ] {
+        assert!(v.join(f).exists(), "{f}");
+    }
+    let json: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(v.join("variants.json")).unwrap()).unwrap();
+    let names: Vec<&str> = json["figures"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|x| x.as_str().unwrap())
+        .collect();
+    let k = names
+        .iter()
+        .position(|n| *n == "gain.pole_pair1_f0_hz")
+        .unwrap();
+    let (a, b) = (
+        json["values"][0][k].as_f64().unwrap(),
+        json["values"][1][k].as_f64().unwrap(),
+    );
+    // f0 ∝ 1/√R2 (closed form).
+    assert!((b / a - (10.0f64 / 12.0).sqrt()).abs() < 1e-9, "{a} {b}");
+    let text = stdout(
+        analyzer()
+            .args(["variants", "--snap", "E12", "-o"])
+            .arg(tmp.path().join("s"))
+            .arg(example()),
+    );
+    assert!(text.contains("C2") && text.contains("1.200 nF"), "{text}");
+}
+
+#[test]
+fn what_if_arguments_are_checked() {
+    for (args, want) in [
+        (
+            vec!["variants", "--step", "R9=1k,2k"],
+            "error: --step R9=1k,2k: the design has no part \"R9\"\n",
+        ),
+        (
+            vec!["variants", "--snap", "E7"],
+            "error: --snap: unknown series \"E7\"; the IEC 60063 series are E6, E12, E24, E48, E96 and E192\n",
+        ),
+        (
+            vec!["sensitivity", "--set", "R1=4k7 apples"],
+            "error: --set R1=4k7 apples: R1: ",
+        ),
+        (
+            vec!["variants", "--step", "C1=1n..100n/1"],
+            "error: --step C1=1n..100n/1: \"C1=1n..100n/1\": N after / must be a whole number from 2 to 50\n",
+        ),
+    ] {
+        let tmp = tempfile::tempdir().unwrap();
+        let out = analyzer()
+            .args(&args)
+            .arg("-o")
+            .arg(tmp.path().join("o"))
+            .arg(example())
+            .assert()
+            .code(2);
+        let err = String::from_utf8_lossy(&out.get_output().stderr).to_string();
+        assert!(err.starts_with(want), "{args:?}: {err}");
+        assert!(!tmp.path().join("o").exists());
+    }
+}
