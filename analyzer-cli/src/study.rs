@@ -244,7 +244,10 @@ fn finish(
 fn value(v: Option<f64>, unit: &str) -> String {
     match v {
         None => "—".into(),
-        Some(x) if unit == "dB" || unit == "°" => format!("{x:.3} {unit}"),
+        // No "-0.000 dB" for a level that rounds to zero.
+        Some(x) if unit == "dB" || unit == "°" => {
+            format!("{:.3} {unit}", if x.abs() < 5e-4 { 0.0 } else { x })
+        }
         Some(x) => format_eng(x, 4, unit),
     }
 }

@@ -62,6 +62,13 @@ const DESIGNS: &[(&str, &str)] = &[
     ("numeric_ratio_without_source", ":11:8: response gain is a ratio, which needs an independent source in [parts]; add one"),
     ("schema_limit_unknown_response", ":13:21: limit pass checks response \"gian\", which the design does not define (it has: gain)"),
     ("schema_limit_no_bound", ":13:8: limit pass needs min_db, max_db or both"),
+    ("tolerance_too_wide", ":9:62: R1: tolerance 150% is outside 0 % … 100 % (a value must stay positive); write e.g. \"1%\""),
+    ("tolerance_negative", ":9:62: R1: tolerance -1% is outside 0 % … 100 % (a value must stay positive); write e.g. \"1%\""),
+    ("tolerance_not_percent", ":9:62: part R1: write a tolerance as text with a % sign, e.g. \"1%\""),
+    ("tolerance_distribution_alone", ":9:65: part R1: distribution applies to a tolerance; give tolerance = \"1%\" (or the like) too"),
+    ("tolerance_distribution_unknown", ":9:83: part R1: distribution: unknown distribution \"gaussian\"; use \"uniform\" (every value inside ±tolerance, equally likely) or \"normal\" (σ = tolerance/3, cut at ±tolerance)"),
+    ("tolerance_table_unknown_key", ":7:1: unknown key `resistors`, expected one of `resistor`, `capacitor`, `inductor`, `controlled`, `dc_gain`, `gbw`, `distribution`"),
+    ("tolerance_ideal_opamp", ":10:94: an ideal op-amp has no values to vary; gbw_tolerance applies to opamp = \"single-pole\""),
 ];
 
 fn analyzer() -> Command {

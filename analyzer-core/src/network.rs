@@ -587,6 +587,14 @@ pub enum NetworkError {
         /// The value given.
         value: f64,
     },
+    /// A tolerance outside [0 %, 100 %).
+    #[error("{part}: tolerance {percent}% is outside 0 % … 100 % (a value must stay positive); write e.g. \"1%\"")]
+    ToleranceOutOfRange {
+        /// Part name.
+        part: String,
+        /// The tolerance given, in %.
+        percent: f64,
+    },
     /// A coupling coefficient outside (0, 1].
     #[error("{part}: coupling coefficient k = {k} is outside 0 < k ≤ 1")]
     CouplingOutOfRange {
@@ -675,6 +683,7 @@ impl NetworkError {
             NetworkError::NotPositive { part, .. }
             | NetworkError::OutOfRange { part, .. }
             | NetworkError::CouplingOutOfRange { part, .. }
+            | NetworkError::ToleranceOutOfRange { part, .. }
             | NetworkError::MissingPart { part, .. }
             | NetworkError::WrongKind { part, .. }
             | NetworkError::BadCoupling { part, .. }
@@ -991,10 +1000,9 @@ impl NetworkBuilder {
     ) -> Result<(), NetworkError> {
         let fraction = tolerance.fraction;
         if !(fraction.is_finite() && (0.0..1.0).contains(&fraction)) {
-            return Err(NetworkError::OutOfRange {
+            return Err(NetworkError::ToleranceOutOfRange {
                 part: name.to_string(),
-                what: "tolerance",
-                value: fraction,
+                percent: 100.0 * fraction,
             });
         }
         if let Some(i) = self.find_part(name) {
