@@ -515,11 +515,11 @@ impl<'e, 'a> Study<'e, 'a> {
                     nominal_phase: ph.clone(),
                     db: db
                         .iter()
-                        .map(|&d| Stat::new(d, Scale::Linear(DB_BIN)))
+                        .map(|&d| Stat::band(d, Scale::Linear(DB_BIN)))
                         .collect(),
                     phase: ph
                         .iter()
-                        .map(|&p| Stat::new(p, Scale::Linear(DEG_BIN)))
+                        .map(|&p| Stat::band(p, Scale::Linear(DEG_BIN)))
                         .collect(),
                 }
             })

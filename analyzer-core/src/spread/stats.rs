@@ -111,17 +111,68 @@ pub const MAX_BINS: usize = 2048;
 /// whatever the order of insertion or merging, so merged shards give the very same bins.
 /// A quantile is reported at the midpoint of its bin, clamped to the exact extremes: its
 /// error is at most half a bin ([`Sketch::error_bound`]).
-#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(into = "SketchWire", from = "SketchWire")]
 pub struct Sketch {
     scale: Scale,
-    #[serde(with = "bits")]
     anchor: f64,
     /// Doublings of the base width.
     level: u32,
-    /// Index of `counts[0]` at the current level.
+    /// Index of `counts[0]` at the current level (the buffer keeps empty slack on both
+    /// sides, so a sketch grows without shifting its counts at every new extreme).
+    offset: i64,
+    counts: Vec<u64>,
+    /// The lowest and highest occupied index (lo > hi when empty).
+    lo: i64,
+    hi: i64,
+}
+
+/// A sketch as stored and compared: only its occupied bins.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+struct SketchWire {
+    scale: Scale,
+    #[serde(with = "bits")]
+    anchor: f64,
+    level: u32,
     offset: i64,
     counts: Vec<u64>,
 }
+
+impl From<Sketch> for SketchWire {
+    fn from(s: Sketch) -> Self {
+        SketchWire {
+            scale: s.scale,
+            anchor: s.anchor,
+            level: s.level,
+            offset: if s.is_empty() { 0 } else { s.lo },
+            counts: s.occupied().to_vec(),
+        }
+    }
+}
+
+impl From<SketchWire> for Sketch {
+    fn from(w: SketchWire) -> Self {
+        let n = w.counts.len() as i64;
+        Sketch {
+            scale: w.scale,
+            anchor: w.anchor,
+            level: w.level,
+            offset: w.offset,
+            counts: w.counts,
+            lo: w.offset,
+            hi: w.offset + n - 1,
+        }
+    }
+}
+
+impl PartialEq for Sketch {
+    fn eq(&self, other: &Self) -> bool {
+        SketchWire::from(self.clone()) == SketchWire::from(other.clone())
+    }
+}
+
+/// Empty bins kept on each side when a sketch's buffer is (re)made.
+const SLACK: i64 = 32;
 
 impl Sketch {
     /// An empty sketch of the given scale, anchored at `anchor` (the nominal value).
@@ -138,7 +189,44 @@ impl Sketch {
             level: 0,
             offset: 0,
             counts: Vec::new(),
+            lo: 0,
+            hi: -1,
         }
+    }
+
+    fn is_empty(&self) -> bool {
+        self.lo > self.hi
+    }
+
+    /// The counts from the lowest to the highest occupied bin.
+    fn occupied(&self) -> &[u64] {
+        if self.is_empty() {
+            return &[];
+        }
+        let a = (self.lo - self.offset) as usize;
+        let b = (self.hi - self.offset) as usize;
+        self.counts.get(a..=b).unwrap_or_default()
+    }
+
+    /// Rebuilds the buffer around the occupied span `[lo, hi]` with slack on both sides;
+    /// `put(index, count)` is called for each old occupied bin, mapped by `map`.
+    fn rebuild(&mut self, lo: i64, hi: i64, map: impl Fn(i64) -> i64) {
+        let span = hi - lo + 1;
+        let slack = SLACK.max(span.min(MAX_BINS as i64));
+        let offset = lo - slack;
+        let mut counts = vec![0u64; (span + 2 * slack) as usize];
+        if !self.is_empty() {
+            for (i, &c) in self.occupied().iter().enumerate() {
+                if c > 0 {
+                    let j = map(self.lo + i as i64) - offset;
+                    counts[j as usize] += c;
+                }
+            }
+        }
+        self.counts = counts;
+        self.offset = offset;
+        self.lo = lo;
+        self.hi = hi;
     }
 
     fn width0(&self) -> f64 {
@@ -177,46 +265,30 @@ impl Sketch {
     }
 
     fn add_at(&mut self, mut k: i64, n: u64) {
-        if self.counts.is_empty() {
-            self.offset = k;
-            self.counts.push(n);
+        if self.is_empty() {
+            self.rebuild(k, k, |i| i);
+            self.counts[(k - self.offset) as usize] += n;
             return;
         }
-        loop {
-            let lo = self.offset.min(k);
-            let hi = (self.offset + self.counts.len() as i64 - 1).max(k);
-            if hi - lo < MAX_BINS as i64 {
-                break;
-            }
+        while self.hi.max(k) - self.lo.min(k) >= MAX_BINS as i64 {
             self.coarsen();
             k >>= 1;
         }
-        if k < self.offset {
-            let grow = (self.offset - k) as usize;
-            self.counts.splice(0..0, std::iter::repeat_n(0, grow));
-            self.offset = k;
+        if k < self.offset || k >= self.offset + self.counts.len() as i64 {
+            let (lo, hi) = (self.lo.min(k), self.hi.max(k));
+            self.rebuild(lo, hi, |i| i);
         }
-        let i = (k - self.offset) as usize;
-        if i >= self.counts.len() {
-            self.counts.resize(i + 1, 0);
-        }
-        self.counts[i] += n;
+        self.lo = self.lo.min(k);
+        self.hi = self.hi.max(k);
+        self.counts[(k - self.offset) as usize] += n;
     }
 
     /// Doubles the bin width: bins 2j and 2j+1 become bin j.
     fn coarsen(&mut self) {
-        let mut out: Vec<u64> = Vec::with_capacity(self.counts.len() / 2 + 1);
-        let new_offset = self.offset >> 1;
-        for (i, &c) in self.counts.iter().enumerate() {
-            let j = ((self.offset + i as i64) >> 1) - new_offset;
-            let j = j as usize;
-            if j >= out.len() {
-                out.resize(j + 1, 0);
-            }
-            out[j] += c;
+        if !self.is_empty() {
+            let (lo, hi) = (self.lo >> 1, self.hi >> 1);
+            self.rebuild(lo, hi, |i| i >> 1);
         }
-        self.counts = out;
-        self.offset = new_offset;
         self.level += 1;
     }
 
@@ -250,10 +322,10 @@ impl Sketch {
         }
         let rank = ((p * n as f64).ceil() as u64).clamp(1, n);
         let mut seen = 0u64;
-        for (i, &c) in self.counts.iter().enumerate() {
+        for (i, &c) in self.occupied().iter().enumerate() {
             seen += c;
             if seen >= rank {
-                let k = self.offset + i as i64;
+                let k = self.lo + i as i64;
                 let w = self.bin_width();
                 let u = self.anchor + (k as f64 + 0.5) * w;
                 let v = match self.scale {
@@ -285,6 +357,8 @@ pub struct Stat {
     /// Σ(x − nominal)², exactly (each square rounded once).
     sum_sq: ExactSum,
     sketch: Sketch,
+    /// Whether the sums are kept (no mean or σ without them).
+    moments: bool,
 }
 
 impl Stat {
@@ -299,6 +373,16 @@ impl Stat {
             sum: ExactSum::default(),
             sum_sq: ExactSum::default(),
             sketch: Sketch::new(scale, nominal),
+            moments: true,
+        }
+    }
+
+    /// A statistic of extremes and percentiles only (no mean or σ): cheaper per value, for
+    /// the envelope's many frequencies.
+    pub fn band(nominal: f64, scale: Scale) -> Self {
+        Stat {
+            moments: false,
+            ..Stat::new(nominal, scale)
         }
     }
 
@@ -311,13 +395,15 @@ impl Stat {
         self.count += 1;
         self.min = self.min.min(x);
         self.max = self.max.max(x);
-        let d = x - if self.nominal.is_finite() {
-            self.nominal
-        } else {
-            0.0
-        };
-        self.sum.add(d);
-        self.sum_sq.add(d * d);
+        if self.moments {
+            let d = x - if self.nominal.is_finite() {
+                self.nominal
+            } else {
+                0.0
+            };
+            self.sum.add(d);
+            self.sum_sq.add(d * d);
+        }
         self.sketch.add(x);
     }
 
@@ -351,11 +437,11 @@ impl Stat {
         } else {
             0.0
         };
-        (self.count > 0).then(|| base + self.sum.value() / self.count as f64)
+        (self.count > 0 && self.moments).then(|| base + self.sum.value() / self.count as f64)
     }
     /// The sample standard deviation (n − 1).
     pub fn std_dev(&self) -> Option<f64> {
-        if self.count < 2 {
+        if self.count < 2 || !self.moments {
             return None;
         }
         let n = self.count as f64;
@@ -382,11 +468,15 @@ impl Sketch {
     /// both data sets would have: both are brought to a common level, the union's span is
     /// coarsened until it fits, then the counts are added.
     pub fn merge(&mut self, other: &Sketch) {
-        if other.counts.is_empty() {
+        if other.is_empty() {
             return;
         }
-        if self.counts.is_empty() {
+        if self.is_empty() {
+            let level = self.level.max(other.level);
             *self = other.clone();
+            while self.level < level {
+                self.coarsen();
+            }
             return;
         }
         let mut other = other.clone();
@@ -397,18 +487,14 @@ impl Sketch {
             while self.level < other.level {
                 self.coarsen();
             }
-            let lo = self.offset.min(other.offset);
-            let hi = (self.offset + self.counts.len() as i64)
-                .max(other.offset + other.counts.len() as i64)
-                - 1;
-            if hi - lo < MAX_BINS as i64 {
+            if self.hi.max(other.hi) - self.lo.min(other.lo) < MAX_BINS as i64 {
                 break;
             }
             self.coarsen();
         }
-        for (i, &c) in other.counts.iter().enumerate() {
+        for (i, &c) in other.occupied().iter().enumerate() {
             if c > 0 {
-                self.add_at(other.offset + i as i64, c);
+                self.add_at(other.lo + i as i64, c);
             }
         }
     }
@@ -499,7 +585,7 @@ mod tests {
         merged.merge(&parts[0]);
         merged.merge(&parts[1]);
         assert_eq!(merged, whole);
-        assert!(whole.counts.len() <= MAX_BINS);
+        assert!(whole.occupied().len() <= MAX_BINS);
         // Quantiles within the stated bound of the exact order statistics.
         let mut sorted = data.clone();
         sorted.sort_by(f64::total_cmp);
