@@ -156,7 +156,7 @@ fn figure_value(f: &FigureSensitivity) -> String {
     match f.per {
         sensitivity::Per::Relative if f.figure.ends_with(" Q") => format!("{:.4}", f.value),
         sensitivity::Per::Relative => format_eng(f.value, 5, "Hz"),
-        sensitivity::Per::Db => format!("{:.3} dB", f.value),
+        sensitivity::Per::Db => format!("{:.3} dB", zeroed(f.value)),
         sensitivity::Per::Degrees => format!("{:.2}°", f.value),
     }
 }
@@ -630,7 +630,16 @@ fn show(v: f64, unit: &str) -> String {
         return "—".into();
     }
     match unit {
-        "dB" | "°" => format!("{v:.3} {unit}"),
+        "dB" | "°" => format!("{:.3} {unit}", zeroed(v)),
         _ => format_eng(v, 5, unit),
+    }
+}
+
+/// No "-0.000" for a level that rounds to zero at three decimals.
+fn zeroed(v: f64) -> f64 {
+    if v.abs() < 5e-4 {
+        0.0
+    } else {
+        v
     }
 }

@@ -1,21 +1,21 @@
 //! Worst case: the corner of the tolerance box that pushes each limit hardest.
 //!
-//! At a limit's worst frequency the margin's sensitivity to every toleranced value
-//! ([`crate::sensitivity`]) says which end of each tolerance lowers it; that corner's margin
-//! is predicted to first order and then verified by re-solving the whole sweep at the corner.
-//! Where the corner's own worst frequency lies elsewhere, the signs are taken again there
-//! (at most [`MAX_ROUNDS`] corners per limit) and the lowest verified margin is kept. A
-//! prediction that misses the verified margin by more than [`PREDICTION_SLACK_DB`] (or a
-//! tenth of the change) is reported: the margin is then not linear over the box.
+//! At every frequency a limit checks, the margin's sensitivity to every toleranced value
+//! ([`crate::sensitivity`]) says which end of each tolerance lowers it, for each of its
+//! bounds; each such corner's margin is predicted to first order. The corners with the
+//! lowest predictions (at most [`MAX_ROUNDS`] distinct ones) are verified by re-solving the
+//! whole sweep, and the lowest verified margin is kept. A prediction that misses the
+//! verified margin by more than [`PREDICTION_SLACK_DB`] (or a tenth of the change) is
+//! reported: the margin is then not linear over the box.
 
-use crate::metrics::{self, Assessment, Limit, MetricOptions};
+use crate::metrics::{self, Assessment, MetricOptions};
 use crate::response::{AnalysisError, Evaluator};
 use crate::sensitivity::{self, Value};
 use crate::sweep::Grid;
 use serde::Serialize;
 use std::f64::consts::LN_10;
 
-/// Most corners tried per limit.
+/// Most corners verified per limit.
 pub const MAX_ROUNDS: usize = 3;
 /// A prediction within this of the verified margin (dB) counts as right.
 pub const PREDICTION_SLACK_DB: f64 = 0.05;
@@ -48,6 +48,11 @@ pub struct Corner {
 
 /// The worst-case corner of every limit in `nominal.checks`, over the values of `values`
 /// that have a tolerance (the others stay nominal).
+///
+/// Every grid point in the limit's range, its ends and every refined extremum inside it is a
+/// candidate: there, for each bound, the margin's sensitivities give a corner and its
+/// first-order margin. The [`MAX_ROUNDS`] distinct corners with the lowest predicted margins
+/// are verified by re-solving the sweep; the lowest verified margin is the worst case.
 pub fn worst_case(
     ev: &Evaluator<'_>,
     grid: &Grid,
@@ -57,43 +62,64 @@ pub fn worst_case(
 ) -> Result<Vec<Corner>, AnalysisError> {
     let specs = ev.analysis().responses();
     let mut out = Vec::new();
-    for (li, check) in nominal.checks.iter().enumerate() {
+    let mut ws = ev.workspace();
+    for check in &nominal.checks {
         let limit = &check.limit;
         let Some(r) = specs.iter().position(|s| s.name == limit.response) else {
             continue;
         };
-        let mut ws = ev.workspace();
-        let mut at = check.worst_at_hz;
-        let mut best: Option<Corner> = None;
-        let mut tried: Vec<Vec<f64>> = Vec::new();
-        for round in 1..=MAX_ROUNDS {
-            let (p, s) = sensitivity::at(ev, &mut ws, at, r, values)?;
+        let inside = |f: &f64| *f >= limit.from && *f <= limit.to;
+        let mut cands: Vec<f64> = grid.points().into_iter().filter(inside).collect();
+        cands.extend([limit.from, limit.to, check.worst_at_hz]);
+        if let Some(f) = nominal.figures.get(r) {
+            cands.extend(f.extrema_hz.iter().copied().filter(inside));
+        }
+        cands.retain(|f| *f > 0.0 || grid.has_dc());
+        // (predicted margin, deviations) per candidate and bound.
+        let mut predictions: Vec<(f64, Vec<f64>)> = Vec::new();
+        for &f in &cands {
+            let (p, s) = sensitivity::at(ev, &mut ws, f, r, values)?;
             let db = 20.0 * p.value.norm().log10();
-            // The bound that binds at this frequency, and the margin's slope per ln p.
-            let (margin, sign) = binding(limit, db);
-            let slope: Vec<f64> = s.iter().map(|s| sign * 20.0 / LN_10 * s.re).collect();
-            let deviations: Vec<f64> = values
-                .iter()
-                .zip(&slope)
-                .map(|(v, m)| {
-                    let t = v.tolerance.map_or(0.0, |t| t.fraction);
-                    if *m > 0.0 {
-                        -t
-                    } else {
-                        t
-                    }
-                })
-                .collect();
+            let bounds = [
+                limit.max_db.map(|m| (m - db, -1.0)),
+                limit.min_db.map(|m| (db - m, 1.0)),
+            ];
+            for (margin, sign) in bounds.into_iter().flatten() {
+                let slope: Vec<f64> = s.iter().map(|s| sign * 20.0 / LN_10 * s.re).collect();
+                let deviations: Vec<f64> = values
+                    .iter()
+                    .zip(&slope)
+                    .map(|(v, m)| {
+                        let t = v.tolerance.map_or(0.0, |t| t.fraction);
+                        if *m > 0.0 {
+                            -t
+                        } else {
+                            t
+                        }
+                    })
+                    .collect();
+                let predicted = margin
+                    + slope
+                        .iter()
+                        .zip(&deviations)
+                        .map(|(m, d)| m * d.ln_1p())
+                        .sum::<f64>();
+                if predicted.is_finite() {
+                    predictions.push((predicted, deviations));
+                }
+            }
+        }
+        predictions.sort_by(|a, b| a.0.total_cmp(&b.0));
+        let mut tried: Vec<Vec<f64>> = Vec::new();
+        let mut best: Option<Corner> = None;
+        for (predicted, deviations) in predictions {
             if tried.contains(&deviations) {
+                continue;
+            }
+            if tried.len() >= MAX_ROUNDS {
                 break;
             }
             tried.push(deviations.clone());
-            let predicted = margin
-                + slope
-                    .iter()
-                    .zip(&deviations)
-                    .map(|(m, d)| m * d.ln_1p())
-                    .sum::<f64>();
             let changes: Vec<_> = values
                 .iter()
                 .zip(&deviations)
@@ -104,7 +130,7 @@ pub fn worst_case(
             let mev = moved.evaluator_like(ev)?;
             let a = metrics::assess(&mev, grid, opts, std::slice::from_ref(limit))?;
             let Some(c) = a.checks.first() else {
-                break;
+                continue;
             };
             let corner = Corner {
                 limit: limit.name.clone(),
@@ -115,40 +141,20 @@ pub fn worst_case(
                 margin_db: c.worst_margin_db,
                 worst_hz: c.worst_at_hz,
                 pass: c.pass,
-                rounds: round,
+                rounds: tried.len(),
                 prediction_off: false,
             };
-            let moved_on = (c.worst_at_hz / at - 1.0).abs() > 1e-6;
-            at = c.worst_at_hz;
             if best.as_ref().is_none_or(|b| corner.margin_db < b.margin_db) {
                 best = Some(corner);
-            } else if let Some(b) = best.as_mut() {
-                b.rounds = round;
-            }
-            if !moved_on {
-                break;
             }
         }
         if let Some(mut b) = best {
+            b.rounds = tried.len();
             let change = (b.margin_db - b.nominal_margin_db).abs();
             b.prediction_off =
                 (b.predicted_margin_db - b.margin_db).abs() > PREDICTION_SLACK_DB.max(0.1 * change);
             out.push(b);
         }
-        let _ = li;
     }
     Ok(out)
-}
-
-/// The margin at level `db` against the limit's tighter bound, and the sign of the margin's
-/// change with the level (−1 under a ceiling, +1 over a floor).
-fn binding(limit: &Limit, db: f64) -> (f64, f64) {
-    let hi = limit.max_db.map(|m| m - db);
-    let lo = limit.min_db.map(|m| db - m);
-    match (hi, lo) {
-        (Some(h), Some(l)) if l < h => (l, 1.0),
-        (Some(h), _) => (h, -1.0),
-        (None, Some(l)) => (l, 1.0),
-        (None, None) => (f64::INFINITY, 0.0),
-    }
 }

@@ -414,3 +414,37 @@ fn worst_corner_of_an_rc_ceiling_is_both_values_low_and_matches_the_closed_form(
         c.predicted_margin_db, c.margin_db
     );
 }
+
+#[test]
+fn no_sampled_board_is_worse_than_the_worst_case_corner() {
+    // Closed reasoning: where a margin is monotonic in each value over the tolerance box (as
+    // this ladder's are), its minimum over the box is at a corner, so no sample inside the
+    // box may do worse than the verified worst-case corner.
+    let d = design::parse(reference_suite::LADDER_WITH_LIMITS).unwrap();
+    let grid = d.sweep.grid().unwrap();
+    let limits = d.limits.clone();
+    let analysis = Analysis::new(d.network, d.responses).unwrap();
+    let ev = analysis.evaluator().unwrap();
+    let opts = vec![MetricOptions::default(); 2];
+    let nominal = analyzer_core::metrics::assess(&ev, &grid, &opts, &limits).unwrap();
+    let values = analyzer_core::sensitivity::values(&ev);
+    let corners = analyzer_core::corners::worst_case(&ev, &grid, &opts, &nominal, &values).unwrap();
+    let study = Study::new(&ev, &grid, opts, &limits, 99).unwrap();
+    let (state, _) = run_all(&study, 400);
+    for c in &corners {
+        let name = format!("limit.{}.margin_db", c.limit);
+        let k = state
+            .figure_names()
+            .iter()
+            .position(|n| *n == name)
+            .unwrap();
+        let lowest = state.summary().figures[k].min.unwrap();
+        assert!(
+            c.margin_db <= lowest + 1e-9,
+            "{}: corner {} but a sample reached {lowest}",
+            c.limit,
+            c.margin_db
+        );
+        assert!(c.margin_db < c.nominal_margin_db);
+    }
+}
