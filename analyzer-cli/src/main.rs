@@ -3,6 +3,7 @@
 //! A thin front end: it parses arguments, reads and writes files, and maps errors to exit
 //! codes. Every computation is in `analyzer-core`.
 
+mod nport;
 mod output;
 mod report;
 mod study;
@@ -76,6 +77,9 @@ enum Command {
     /// The design swept once per value of a part (--step) or moved to preferred values
     /// (--snap E24): overlaid plots, CSVs per variant, figures side by side.
     Variants(Box<whatif::VariantsArgs>),
+    /// The design's `[ports]` as an N-port: S-parameters (CSV and Touchstone), return loss,
+    /// VSWR, insertion loss, reciprocity and passivity.
+    Ports(Box<nport::PortsArgs>),
 }
 
 #[derive(Args, Debug)]
@@ -206,6 +210,7 @@ fn main() -> ExitCode {
         Command::Sensitivity(args) => whatif::run_sensitivity(&args),
         Command::Corners(args) => whatif::run_corners(&args),
         Command::Variants(args) => whatif::run_variants(&args),
+        Command::Ports(args) => nport::run_ports(&args),
     };
     match result {
         Ok(code) => ExitCode::from(code),

@@ -85,7 +85,13 @@ pub(crate) struct Prepared {
     pub out_dir: PathBuf,
 }
 
-pub(crate) fn prepare(c: &Common, command: &str) -> Result<Prepared, Failure> {
+/// The design as the common options make it: read (warnings printed unless quiet), changed
+/// by `--set`, its sweep respaced by `--per-decade`; with its grid, its name for messages and
+/// the output directory (DESIGN-COMMAND/ unless `-o`).
+pub(crate) fn read_design(
+    c: &Common,
+    command: &str,
+) -> Result<(Design, Grid, String, PathBuf), Failure> {
     let mut d: Design = load(&c.design)?;
     if !c.quiet {
         print_warnings(&d, &c.design);
@@ -101,18 +107,6 @@ pub(crate) fn prepare(c: &Common, command: &str) -> Result<Prepared, Failure> {
         .sweep
         .grid()
         .map_err(|e| Failure::input(format!("{shown}: sweep: {e}")))?;
-    let limits = d.limits.clone();
-    let caution = d.caution;
-    let analysis = Analysis::new(d.network, d.responses)
-        .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
-    let opts = analysis
-        .responses()
-        .iter()
-        .map(|s| MetricOptions {
-            level_db: s.level_db,
-            reference: s.reference.unwrap_or_default(),
-        })
-        .collect();
     let out_dir = c.output.clone().unwrap_or_else(|| {
         let stem = c
             .design
@@ -126,6 +120,23 @@ pub(crate) fn prepare(c: &Common, command: &str) -> Result<Prepared, Failure> {
             out_dir.display()
         )));
     }
+    Ok((d, grid, shown, out_dir))
+}
+
+pub(crate) fn prepare(c: &Common, command: &str) -> Result<Prepared, Failure> {
+    let (d, grid, shown, out_dir) = read_design(c, command)?;
+    let limits = d.limits.clone();
+    let caution = d.caution;
+    let analysis = Analysis::new(d.network, d.responses)
+        .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+    let opts = analysis
+        .responses()
+        .iter()
+        .map(|s| MetricOptions {
+            level_db: s.level_db,
+            reference: s.reference.unwrap_or_default(),
+        })
+        .collect();
     Ok(Prepared {
         analysis,
         grid,

@@ -130,3 +130,47 @@ fn what_if_arguments_are_checked() {
         assert!(!tmp.path().join("o").exists());
     }
 }
+
+#[test]
+fn ports_write_touchstone_and_csv_that_agree() {
+    let design = Path::new(env!("CARGO_MANIFEST_DIR")).join("../sweeps/sensor-line-filter.toml");
+    let tmp = tempfile::tempdir().unwrap();
+    let text = stdout(
+        analyzer()
+            .args(["ports", "-o"])
+            .arg(tmp.path())
+            .arg(&design),
+    );
+    assert!(
+        text.contains("reciprocity") && text.contains("(passive)"),
+        "{text}"
+    );
+    let ts = std::fs::read_to_string(tmp.path().join("ports.s2p")).unwrap();
+    let data = analyzer_core::touchstone::read(&ts, None).unwrap();
+    let csv = std::fs::read_to_string(tmp.path().join("ports.csv")).unwrap();
+    let mut rows = csv.lines();
+    let head: Vec<&str> = rows.next().unwrap().split(',').collect();
+    let k = head.iter().position(|h| *h == "s21_db").unwrap();
+    for (row, s) in rows.zip(&data.s) {
+        let cells: Vec<f64> = row.split(',').map(|c| c.parse().unwrap()).collect();
+        let want = 20.0 * s[2].norm().log10();
+        assert!((cells[k] - want).abs() < 1e-9, "{} vs {want}", cells[k]);
+    }
+    // Version 1.1 on request; a design without ports says what to add.
+    stdout(
+        analyzer()
+            .args(["ports", "--touchstone", "1", "-q", "-o"])
+            .arg(tmp.path().join("v1"))
+            .arg(&design),
+    );
+    let v1 = std::fs::read_to_string(tmp.path().join("v1/ports.s2p")).unwrap();
+    assert!(v1.contains("# HZ S RI R 50") && !v1.contains("[Version]"));
+    let out = analyzer()
+        .args(["ports", "-o"])
+        .arg(tmp.path().join("none"))
+        .arg(example())
+        .assert()
+        .code(2);
+    let err = String::from_utf8_lossy(&out.get_output().stderr).to_string();
+    assert!(err.contains("the design has no [ports]"), "{err}");
+}

@@ -526,6 +526,39 @@ impl Network {
         out
     }
 
+    /// The same network with resistors added (name, first node, second node, ohms): the
+    /// terminations of an N-port analysis. Names must be new (the port analysis uses names
+    /// with a space, which a design cannot write).
+    pub fn with_resistors(
+        &self,
+        added: &[(String, NodeId, NodeId, f64)],
+    ) -> Result<Network, NetworkError> {
+        let mut net = self.clone();
+        for (name, a, b, ohms) in added {
+            check_positive(name, "value", *ohms)?;
+            if net.part_id(name).is_some() {
+                return Err(NetworkError::DuplicateName { name: name.clone() });
+            }
+            let position = net.parts.len() as u32;
+            net.parts.push(Part {
+                name: name.clone(),
+                kind: PartKind::Resistor {
+                    a: *a,
+                    b: *b,
+                    ohms: *ohms,
+                },
+                tolerance: None,
+                gbw_tolerance: None,
+                noise: None,
+            });
+            let parts = &net.parts;
+            net.part_index.insert(name, position, |p| {
+                parts.get(p as usize).map_or("", |x| x.name.as_str())
+            });
+        }
+        Ok(net)
+    }
+
     /// The same network with some values changed: `(part, param, value)`. The structure (and
     /// so the pattern of the system) stays the same. Fails, naming the part, on a value the
     /// part cannot take (not positive and finite where it must be, a coupling outside (0, 1]).

@@ -50,6 +50,14 @@ pub enum ResponseKind {
     Impedance(NodeId, NodeId),
     /// Driving-point admittance between two nodes, sources off.
     Admittance(NodeId, NodeId),
+    /// Transfer impedance, sources off: the voltage between `read` per ampere injected into
+    /// `inject.0` and taken out of `inject.1` (the columns of an N-port's matrices).
+    Transfer {
+        /// Where the test current enters and leaves.
+        inject: (NodeId, NodeId),
+        /// The voltage read.
+        read: (NodeId, NodeId),
+    },
     /// The noise density of the voltage between two nodes (see [`crate::noise`]), referred
     /// to the ratio response `referred_to` (an index into the responses) when given, with a
     /// source resistor `source` for the noise figure.
@@ -136,7 +144,7 @@ impl ResponseKind {
     /// The unit of this response's value.
     pub fn unit(&self) -> ResponseUnit {
         match self {
-            ResponseKind::Impedance(..) => ResponseUnit::Ohms,
+            ResponseKind::Impedance(..) | ResponseKind::Transfer { .. } => ResponseUnit::Ohms,
             ResponseKind::Admittance(..) => ResponseUnit::Siemens,
             ResponseKind::Noise { .. } => ResponseUnit::NoiseDensity,
             ResponseKind::Ratio {
@@ -381,6 +389,18 @@ impl Analysis {
                             invert,
                             noise: None,
                         },
+                    }
+                }
+                ResponseKind::Transfer { inject, read } => {
+                    if inject.0 == inject.1 || read.0 == read.1 {
+                        return Err(bad("the two nodes are the same".into()));
+                    }
+                    Resolved {
+                        excitation: slot(Excitation::Injection(inject.0, inject.1)),
+                        numerator: System::voltage_readout(read.0, read.1),
+                        denominator: None,
+                        invert: false,
+                        noise: None,
                     }
                 }
                 ResponseKind::Noise {

@@ -135,6 +135,8 @@ pub struct Design {
     pub responses: Vec<ResponseSpec>,
     /// Magnitude limits to check, in file order.
     pub limits: Vec<crate::metrics::Limit>,
+    /// Ports for the N-port analysis, in file order.
+    pub ports: Vec<crate::ports::Port>,
     /// Whether the design mentions a mains, high-voltage or medical use in its title or
     /// `caution` key, so reports carry the safety caution.
     pub caution: bool,
@@ -291,6 +293,7 @@ const TOP_KEYS: &[&str] = &[
     "parts",
     "responses",
     "limits",
+    "ports",
 ];
 const SWEEP_KEYS: &[&str] = &["from", "to", "per_decade", "points", "at"];
 const RESPONSE_KEYS: &[&str] = &[
@@ -306,6 +309,7 @@ const RESPONSE_KEYS: &[&str] = &[
     "band",
 ];
 const LIMIT_KEYS: &[&str] = &["response", "from", "to", "min_db", "max_db"];
+const PORT_KEYS: &[&str] = &["between", "z0"];
 
 fn backticked(list: &[&str]) -> String {
     list.iter()
@@ -592,6 +596,13 @@ pub fn parse(text: &str) -> Result<Design, DesignError> {
             limits.push(read_limit(&pos, &responses, &key.text, entry)?);
         }
     }
+    let mut ports = Vec::new();
+    if let Some(ps) = top.value("ports") {
+        for (key, value) in table(&pos, ps, || "[ports]".into())?.entries() {
+            let entry = table(&pos, value, || format!("port {}", key.text))?;
+            ports.push(read_port(&pos, &network, &key.text, entry)?);
+        }
+    }
     let lower = title.to_lowercase();
     let caution = caution_key
         || [
@@ -611,8 +622,67 @@ pub fn parse(text: &str) -> Result<Design, DesignError> {
         sweep,
         responses,
         limits,
+        ports,
         caution,
         warnings,
+    })
+}
+
+fn read_port(
+    pos: &Positions<'_>,
+    net: &Network,
+    name: &str,
+    entry: Table<'_, '_>,
+) -> Result<crate::ports::Port, DesignError> {
+    let span = entry.span();
+    let e = Fields::of(entry, PORT_KEYS, pos, unknown_key(PORT_KEYS))?;
+    let bv = e.value("between").ok_or_else(|| {
+        pos.err(
+            span.clone(),
+            format!("port {name} needs between = [\"node\", \"node\"]"),
+        )
+    })?;
+    let (a, b) = two_nodes(pos, bv, "between")?;
+    let node = |n: &str| {
+        net.node(n).ok_or_else(|| {
+            let mut known: Vec<&str> = net.node_names().iter().map(String::as_str).collect();
+            known.sort_unstable();
+            pos.err(
+                bv.span(),
+                format!(
+                    "port {name} is on node {n:?}, which no part connects to (nodes: {})",
+                    known.join(", ")
+                ),
+            )
+        })
+    };
+    let (plus, minus) = (node(&a)?, node(&b)?);
+    if plus == minus {
+        return Err(pos.err(
+            bv.span(),
+            format!("port {name}: the two nodes are the same"),
+        ));
+    }
+    let z0 = match e.value("z0") {
+        Some(v) => {
+            let z = number(pos, v, Quantity::Resistance, &format!("port {name}: z0"))?;
+            if !(z > 0.0 && z.is_finite()) {
+                return Err(pos.err(
+                    v.span(),
+                    format!(
+                        "port {name}: z0 must be a positive real impedance in ohms, e.g. \"50\""
+                    ),
+                ));
+            }
+            z
+        }
+        None => 50.0,
+    };
+    Ok(crate::ports::Port {
+        name: name.to_string(),
+        plus,
+        minus,
+        z0,
     })
 }
 

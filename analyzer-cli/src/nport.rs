@@ -1,0 +1,225 @@
+//! `analyzer ports`: the design's `[ports]` as an N-port: S-parameters over the sweep as CSV
+//! and Touchstone, reflection figures per port, insertion loss, reciprocity and passivity.
+
+use crate::output::Staging;
+use crate::whatif::Common;
+use crate::Failure;
+use analyzer_core::ports::{self, NPort, SPoint};
+use analyzer_core::touchstone::{self, Version};
+use analyzer_core::units::format_eng;
+use clap::Args;
+use std::fmt::Write as _;
+
+#[derive(Args, Debug)]
+pub struct PortsArgs {
+    #[command(flatten)]
+    common: Common,
+    /// Touchstone version of the .sNp file: 1 (1.1; needs one z0 for all ports) or 2 (2.0).
+    #[arg(long, value_name = "1|2", default_value_t = 2)]
+    touchstone: u8,
+    /// Return loss (dB) whose band is reported per port.
+    #[arg(long, value_name = "DB", default_value_t = 10.0)]
+    return_loss: f64,
+}
+
+fn db(z: analyzer_core::ports::Complex) -> f64 {
+    20.0 * z.norm().log10()
+}
+
+pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
+    let c = &args.common;
+    let (d, grid, shown, out_dir) = crate::whatif::read_design(c, "ports")?;
+    let version = match args.touchstone {
+        1 => Version::V1,
+        2 => Version::V2,
+        v => {
+            return Err(Failure::input(format!(
+                "--touchstone {v}: write 1 (version 1.1) or 2 (version 2.0)"
+            )))
+        }
+    };
+    let nport = NPort::new(&d.network, d.ports.clone())
+        .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+    let pts: Vec<SPoint> = nport
+        .sweep(&grid)
+        .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+    let list = nport.ports();
+    let n = list.len();
+    let z0: Vec<f64> = list.iter().map(|p| p.z0).collect();
+    let mut staging = Staging::default();
+    let mut ts = Vec::new();
+    touchstone::write(&mut ts, version, &d.network.title, list, &pts)
+        .map_err(|e| Failure::input(format!("--touchstone: {e}")))?;
+    staging.bytes(&out_dir.join(format!("ports.s{n}p")), &ts)?;
+    // CSV: every S_ij in dB and degrees, then each port's return loss and VSWR.
+    let mut csv = String::from("frequency_hz");
+    for i in 1..=n {
+        for j in 1..=n {
+            let _ = write!(csv, ",s{i}{j}_db,s{i}{j}_deg");
+        }
+    }
+    for p in list {
+        let _ = write!(csv, ",{0}_return_loss_db,{0}_vswr", p.name);
+    }
+    csv.push('\n');
+    for p in &pts {
+        let _ = write!(csv, "{}", p.freq);
+        for z in &p.s {
+            let _ = write!(csv, ",{},{}", db(*z), z.arg().to_degrees());
+        }
+        for i in 0..n {
+            let r = ports::reflection(p.s[i * n + i]);
+            let _ = write!(csv, ",{},{}", r.return_loss_db, r.vswr);
+        }
+        csv.push('\n');
+    }
+    staging.bytes(&out_dir.join("ports.csv"), csv.as_bytes())?;
+
+    let mut text = String::new();
+    let _ = writeln!(text, "{}", d.network.title);
+    let _ = writeln!(
+        text,
+        "{n}-port, sweep {}; S with power waves and real reference impedances; return loss as a positive number of dB",
+        grid.describe()
+    );
+    let hz = |f: f64| format_eng(f, 5, "Hz");
+    for (i, p) in list.iter().enumerate() {
+        let rl: Vec<(f64, f64)> = pts
+            .iter()
+            .map(|q| (q.freq, ports::reflection(q.s[i * n + i]).return_loss_db))
+            .collect();
+        let worst = rl
+            .iter()
+            .copied()
+            .min_by(|a, b| a.1.total_cmp(&b.1))
+            .unwrap_or((0.0, f64::NAN));
+        let r = ports::reflection(
+            pts.iter()
+                .find(|q| q.freq == worst.0)
+                .map_or(analyzer_core::ports::Complex::default(), |q| q.s[i * n + i]),
+        );
+        let _ = writeln!(
+            text,
+            "\nport {} (z0 {}): worst return loss {} at {} (|Γ| {:.4}, VSWR {}, mismatch loss {:.3} dB)",
+            p.name,
+            format_eng(p.z0, 4, "Ω"),
+            if worst.1.is_finite() {
+                format!("{:.2} dB", worst.1)
+            } else {
+                "∞ (matched)".into()
+            },
+            hz(worst.0),
+            r.gamma,
+            match r.vswr {
+                v if !v.is_finite() => "∞".into(),
+                v if v >= 1e4 => format!("{v:.3e}"),
+                v => format!("{v:.3}"),
+            },
+            r.mismatch_loss_db
+        );
+        // The bands where the return loss is at least the level, edges on the grid.
+        let mut bands = Vec::new();
+        let mut start: Option<f64> = None;
+        for w in rl.windows(2) {
+            let (a, b) = (w[0], w[1]);
+            if start.is_none() && a.1 >= args.return_loss {
+                start = Some(a.0);
+            }
+            if start.is_some() && b.1 < args.return_loss {
+                bands.push((start.take().unwrap_or(a.0), a.0));
+            }
+        }
+        if let (Some(s), Some(last)) = (start, rl.last()) {
+            bands.push((s, last.0));
+        }
+        if bands.is_empty() {
+            let _ = writeln!(
+                text,
+                "  return loss ≥ {} dB nowhere in the sweep",
+                args.return_loss
+            );
+        }
+        for (a, b) in bands {
+            let _ = writeln!(
+                text,
+                "  return loss ≥ {} dB from {} to {}",
+                args.return_loss,
+                hz(a),
+                hz(b)
+            );
+        }
+    }
+    for i in 0..n {
+        for j in 0..n {
+            if i == j {
+                continue;
+            }
+            let il: Vec<(f64, f64)> = pts.iter().map(|q| (q.freq, -db(q.s[i * n + j]))).collect();
+            let lo = il.iter().copied().min_by(|a, b| a.1.total_cmp(&b.1));
+            let hi = il.iter().copied().max_by(|a, b| a.1.total_cmp(&b.1));
+            if let (Some(lo), Some(hi)) = (lo, hi) {
+                let _ = writeln!(
+                    text,
+                    "\ninsertion loss {} → {} (−20·log10|S{}{}|): {:.2} dB at {} … {:.2} dB at {}",
+                    list[j].name,
+                    list[i].name,
+                    i + 1,
+                    j + 1,
+                    lo.1,
+                    hz(lo.0),
+                    hi.1,
+                    hz(hi.0)
+                );
+            }
+        }
+    }
+    let recip = pts
+        .iter()
+        .map(|p| ports::reciprocity_error(&p.s))
+        .fold(0.0, f64::max);
+    let sigma = pts
+        .iter()
+        .map(|p| ports::largest_singular_value(&p.s))
+        .fold(0.0, f64::max);
+    let _ = writeln!(
+        text,
+        "\nreciprocity: max |Sij − Sji| = {recip:.2e}{}",
+        if recip < 1e-9 { " (reciprocal)" } else { "" }
+    );
+    let _ = writeln!(
+        text,
+        "passivity: largest singular value of S = {sigma:.6}{}",
+        if sigma <= 1.0 + 1e-9 {
+            " (passive)"
+        } else {
+            " (above 1: the network gives out more power than it takes in)"
+        }
+    );
+    if n == 2 {
+        if let Some(p) = pts.get(pts.len() / 2) {
+            if let Some(z) = ports::z_from_s(&p.s, &z0) {
+                if let Some(a) = ports::abcd_from_z(&z) {
+                    let _ = writeln!(
+                        text,
+                        "ABCD at {}: A {:.4}, B {:.4} Ω, C {:.4e} S, D {:.4}",
+                        hz(p.freq),
+                        a[0],
+                        a[1],
+                        a[2],
+                        a[3]
+                    );
+                }
+            }
+        }
+    }
+    let written = staging.commit()?;
+    if !c.quiet {
+        print!("{text}");
+        if d.caution {
+            println!("\n{}", crate::report::CAUTION);
+        }
+        let files: Vec<String> = written.iter().map(|p| p.display().to_string()).collect();
+        println!("wrote {}", files.join(", "));
+    }
+    Ok(0)
+}

@@ -1,0 +1,325 @@
+//! Ports and N-port matrices: S (power waves with real reference impedances, after
+//! Kurokawa), Z, Y, and ABCD for two-ports, from one factorisation per frequency and one
+//! solve per port.
+//!
+//! A port is a pair of nodes, a real reference impedance `z0` and a place to drive and read.
+//! For the port analysis every port is terminated by its `z0` (a resistor between its nodes)
+//! and the design's own sources are off (voltage sources short, current sources open); a
+//! voltage source across a port's own nodes would short it and is refused. Driving port j
+//! with 1 A in parallel with its termination gives incident waves `a_j = √z0_j/2` and
+//! `a_i = 0` elsewhere, so with the port voltages `V_i`:
+//!
+//! ```text
+//! S_ij = 2·V_i/√(z0_i·z0_j) − δ_ij
+//! ```
+//!
+//! Z follows from S as `Z = (I − S′)⁻¹(I + S′)·diag(z0)` with `S′ = diag(√z0)·S·diag(1/√z0)`
+//! (where I − S′ is invertible), Y = Z⁻¹, and for two ports ABCD from Z.
+
+use crate::network::{Network, NetworkError, NodeId, PartKind};
+use crate::response::{Analysis, AnalysisError, Evaluator, ResponseKind, ResponseSpec, Workspace};
+use crate::sweep::Grid;
+use faer::linalg::solvers::Solve;
+use faer::{c64, Mat};
+use num_complex::Complex64;
+
+/// The complex type of S-parameters (re-exported for front ends).
+pub type Complex = Complex64;
+use rayon::prelude::*;
+use serde::Serialize;
+
+/// A port.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct Port {
+    /// Its name.
+    pub name: String,
+    /// The node the port's current enters.
+    #[serde(skip)]
+    pub plus: NodeId,
+    /// The node it leaves by.
+    #[serde(skip)]
+    pub minus: NodeId,
+    /// Reference impedance (Ω, real, > 0).
+    pub z0: f64,
+}
+
+/// Why a port analysis cannot be made.
+#[derive(Debug, thiserror::Error)]
+pub enum PortError {
+    /// No ports.
+    #[error(
+        "the design has no [ports]; add e.g. p1 = {{ between = [\"in\", \"gnd\"], z0 = \"50\" }}"
+    )]
+    NoPorts,
+    /// A voltage source across a port.
+    #[error("port {port} sits across voltage source {voltage_source}, which shorts it when the design's sources are off; drive the port instead of the source (remove it) or put the port elsewhere")]
+    Shorted {
+        /// The port.
+        port: String,
+        /// The source.
+        voltage_source: String,
+    },
+    /// The terminated network.
+    #[error(transparent)]
+    Network(#[from] NetworkError),
+    /// The analysis.
+    #[error(transparent)]
+    Analysis(#[from] AnalysisError),
+}
+
+/// An N-port view of a network.
+pub struct NPort {
+    analysis: Analysis,
+    ports: Vec<Port>,
+}
+
+/// The scattering matrix at one frequency.
+#[derive(Clone, Debug, PartialEq)]
+pub struct SPoint {
+    /// Frequency (Hz).
+    pub freq: f64,
+    /// S, row-major N×N.
+    pub s: Vec<Complex64>,
+    /// dS/dω, row-major.
+    pub ds: Vec<Complex64>,
+}
+
+impl NPort {
+    /// Terminates `net` at every port and prepares one transfer read-out per port pair.
+    pub fn new(net: &Network, ports: Vec<Port>) -> Result<Self, PortError> {
+        if ports.is_empty() {
+            return Err(PortError::NoPorts);
+        }
+        for p in &ports {
+            for part in net.parts() {
+                if let PartKind::VoltageSource { plus, minus, .. } = part.kind {
+                    if (plus, minus) == (p.plus, p.minus) || (plus, minus) == (p.minus, p.plus) {
+                        return Err(PortError::Shorted {
+                            port: p.name.clone(),
+                            voltage_source: part.name.clone(),
+                        });
+                    }
+                }
+            }
+        }
+        let terms: Vec<(String, NodeId, NodeId, f64)> = ports
+            .iter()
+            .map(|p| (format!("port {}", p.name), p.plus, p.minus, p.z0))
+            .collect();
+        let terminated = net.with_resistors(&terms)?;
+        let mut specs = Vec::with_capacity(ports.len() * ports.len());
+        for (j, pj) in ports.iter().enumerate() {
+            for (i, pi) in ports.iter().enumerate() {
+                specs.push(ResponseSpec::new(
+                    format!("v{}_{}", i + 1, j + 1),
+                    ResponseKind::Transfer {
+                        inject: (pj.plus, pj.minus),
+                        read: (pi.plus, pi.minus),
+                    },
+                ));
+            }
+        }
+        let analysis = Analysis::new(terminated, specs)?;
+        Ok(NPort { analysis, ports })
+    }
+
+    /// The ports.
+    pub fn ports(&self) -> &[Port] {
+        &self.ports
+    }
+
+    /// The terminated network's analysis.
+    pub fn analysis(&self) -> &Analysis {
+        &self.analysis
+    }
+
+    /// S at `f` (with its ω-derivative), from `ev` (an evaluator of [`NPort::analysis`]).
+    pub fn at<'a>(
+        &self,
+        ev: &Evaluator<'a>,
+        ws: &mut Workspace<'a>,
+        f: f64,
+    ) -> Result<SPoint, AnalysisError> {
+        let n = self.ports.len();
+        let pts = ev.at(ws, f, true)?;
+        let mut s = vec![Complex64::default(); n * n];
+        let mut ds = vec![Complex64::default(); n * n];
+        for j in 0..n {
+            for i in 0..n {
+                let p = pts[j * n + i];
+                let k = 2.0 / (self.ports[i].z0 * self.ports[j].z0).sqrt();
+                s[i * n + j] = p.value * k - if i == j { 1.0 } else { 0.0 };
+                ds[i * n + j] = p.derivative * k;
+            }
+        }
+        Ok(SPoint { freq: f, s, ds })
+    }
+
+    /// S at every point of `grid`, in parallel.
+    pub fn sweep(&self, grid: &Grid) -> Result<Vec<SPoint>, AnalysisError> {
+        let ev = self.analysis.evaluator()?;
+        let freqs = grid.points();
+        freqs
+            .par_iter()
+            .map_init(|| ev.workspace(), |ws, &f| self.at(&ev, ws, f))
+            .collect()
+    }
+}
+
+fn to_mat(n: usize, v: &[Complex64]) -> Mat<c64> {
+    Mat::from_fn(n, n, |i, j| {
+        let z = v[i * n + j];
+        c64::new(z.re, z.im)
+    })
+}
+
+fn from_mat(m: &Mat<c64>) -> Vec<Complex64> {
+    let n = m.nrows();
+    let mut out = Vec::with_capacity(n * n);
+    for i in 0..n {
+        for j in 0..n {
+            let z = m[(i, j)];
+            out.push(Complex64::new(z.re, z.im));
+        }
+    }
+    out
+}
+
+fn finite(v: &[Complex64]) -> bool {
+    v.iter().all(|z| z.re.is_finite() && z.im.is_finite())
+}
+
+/// Z from S (row-major), for real reference impedances `z0`; None where I − S′ is singular
+/// (a network with no impedance matrix, e.g. a through connection).
+pub fn z_from_s(s: &[Complex64], z0: &[f64]) -> Option<Vec<Complex64>> {
+    let n = z0.len();
+    let sq: Vec<f64> = z0.iter().map(|z| z.sqrt()).collect();
+    let sp = |i: usize, j: usize| s[i * n + j] * sq[i] / sq[j];
+    let a = Mat::<c64>::from_fn(n, n, |i, j| {
+        let v = Complex64::new(if i == j { 1.0 } else { 0.0 }, 0.0) - sp(i, j);
+        c64::new(v.re, v.im)
+    });
+    let b = Mat::<c64>::from_fn(n, n, |i, j| {
+        let v = (Complex64::new(if i == j { 1.0 } else { 0.0 }, 0.0) + sp(i, j)) * z0[j];
+        c64::new(v.re, v.im)
+    });
+    let z = from_mat(&a.partial_piv_lu().solve(&b));
+    // A singular I − S′ shows as a huge or non-finite result; check the residual.
+    let back = s_from_z(&z, z0)?;
+    let err = back
+        .iter()
+        .zip(s)
+        .map(|(x, y)| (x - y).norm())
+        .fold(0.0, f64::max);
+    (finite(&z) && err < 1e-6).then_some(z)
+}
+
+/// S from Z for real reference impedances: `S = F(Z − G)(Z + G)⁻¹F⁻¹`, `F = diag(1/(2√z0))`,
+/// `G = diag(z0)` (Kurokawa's power waves).
+pub fn s_from_z(z: &[Complex64], z0: &[f64]) -> Option<Vec<Complex64>> {
+    let n = z0.len();
+    let zm = to_mat(n, z);
+    let plus = Mat::<c64>::from_fn(n, n, |i, j| {
+        zm[(i, j)]
+            + if i == j {
+                c64::new(z0[i], 0.0)
+            } else {
+                c64::new(0.0, 0.0)
+            }
+    });
+    let minus = Mat::<c64>::from_fn(n, n, |i, j| {
+        zm[(i, j)]
+            - if i == j {
+                c64::new(z0[i], 0.0)
+            } else {
+                c64::new(0.0, 0.0)
+            }
+    });
+    // X = (Z − G)(Z + G)⁻¹  ⇔  (Z + G)ᵀ Xᵀ = (Z − G)ᵀ.
+    let xt = plus
+        .transpose()
+        .to_owned()
+        .partial_piv_lu()
+        .solve(minus.transpose().to_owned());
+    let sq: Vec<f64> = z0.iter().map(|z| z.sqrt()).collect();
+    let mut out = Vec::with_capacity(n * n);
+    for i in 0..n {
+        for j in 0..n {
+            let x = xt[(j, i)];
+            out.push(Complex64::new(x.re, x.im) * sq[j] / sq[i]);
+        }
+    }
+    finite(&out).then_some(out)
+}
+
+/// Y = Z⁻¹; None where Z is singular.
+pub fn y_from_z(z: &[Complex64]) -> Option<Vec<Complex64>> {
+    let n = (z.len() as f64).sqrt() as usize;
+    let eye = Mat::<c64>::from_fn(n, n, |i, j| c64::new(if i == j { 1.0 } else { 0.0 }, 0.0));
+    let y = from_mat(&to_mat(n, z).partial_piv_lu().solve(&eye));
+    finite(&y).then_some(y)
+}
+
+/// ABCD of a two-port from its Z: A = Z11/Z21, B = det Z/Z21, C = 1/Z21, D = Z22/Z21.
+pub fn abcd_from_z(z: &[Complex64]) -> Option<[Complex64; 4]> {
+    if z.len() != 4 || z[2].norm() == 0.0 {
+        return None;
+    }
+    let det = z[0] * z[3] - z[1] * z[2];
+    let out = [z[0] / z[2], det / z[2], z[2].inv(), z[3] / z[2]];
+    finite(&out).then_some(out)
+}
+
+/// One port's reflection figures from Γ.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
+pub struct Reflection {
+    /// |Γ|.
+    pub gamma: f64,
+    /// Return loss, −20·log10|Γ| (positive dB; infinite for a perfect match).
+    pub return_loss_db: f64,
+    /// VSWR, (1 + |Γ|)/(1 − |Γ|) (infinite for |Γ| = 1).
+    pub vswr: f64,
+    /// Mismatch loss, −10·log10(1 − |Γ|²) (dB).
+    pub mismatch_loss_db: f64,
+}
+
+/// The reflection figures of Γ.
+pub fn reflection(gamma: Complex64) -> Reflection {
+    let g = gamma.norm();
+    Reflection {
+        gamma: g,
+        return_loss_db: -20.0 * g.log10(),
+        vswr: if g >= 1.0 {
+            f64::INFINITY
+        } else {
+            (1.0 + g) / (1.0 - g)
+        },
+        mismatch_loss_db: if g >= 1.0 {
+            f64::INFINITY
+        } else {
+            -10.0 * (1.0 - g * g).log10()
+        },
+    }
+}
+
+/// The largest |S_ij − S_ji| (0 for a reciprocal network).
+pub fn reciprocity_error(s: &[Complex64]) -> f64 {
+    let n = (s.len() as f64).sqrt() as usize;
+    let mut worst = 0.0f64;
+    for i in 0..n {
+        for j in 0..i {
+            worst = worst.max((s[i * n + j] - s[j * n + i]).norm());
+        }
+    }
+    worst
+}
+
+/// The largest singular value of S (≤ 1 for a passive network).
+pub fn largest_singular_value(s: &[Complex64]) -> f64 {
+    let n = (s.len() as f64).sqrt() as usize;
+    let m = to_mat(n, s);
+    m.singular_values()
+        .ok()
+        .and_then(|v| v.first().copied())
+        .unwrap_or(f64::NAN)
+}

@@ -1,0 +1,238 @@
+//! Ports and S-parameters against closed forms: reflection of a resistive load, a series
+//! resistor between equal and unequal reference impedances, a T network's Z matrix, the
+//! reflection figures' definitions; Touchstone files read back by our own reader.
+
+use analyzer_core::design;
+use analyzer_core::ports::{self, NPort, SPoint};
+use analyzer_core::sweep::Grid;
+use analyzer_core::touchstone::{self, Version};
+use num_complex::Complex64;
+use reference_suite::rel;
+
+fn nport(text: &str) -> (NPort, Grid) {
+    let d = design::parse(text).unwrap();
+    let grid = d.sweep.grid().unwrap();
+    (NPort::new(&d.network, d.ports).unwrap(), grid)
+}
+
+/// A design of resistors between 1 and 10 kHz with the given parts and ports.
+fn resistive(parts: &str, ports: &str) -> String {
+    format!(
+        "[sweep]\nfrom = \"1 kHz\"\nto = \"10 kHz\"\n[parts]\n{parts}\n[responses]\nz = {{ impedance = [\"a\", \"gnd\"] }}\n[ports]\n{ports}\n"
+    )
+}
+
+fn s_at(np: &NPort, f: f64) -> SPoint {
+    let ev = np.analysis().evaluator().unwrap();
+    let mut ws = ev.workspace();
+    np.at(&ev, &mut ws, f).unwrap()
+}
+
+#[test]
+fn a_resistive_load_reflects_as_the_closed_form() {
+    // Γ = (R − Z0)/(R + Z0) (closed form): 0 for a matched load (return loss infinite, VSWR
+    // 1), |Γ| → 1 for a short and an open.
+    for (r, z0) in [
+        (50.0, 50.0),
+        (1e-3, 50.0),
+        (1e9, 50.0),
+        (75.0, 50.0),
+        (12.5, 75.0),
+    ] {
+        let (np, _) = nport(&resistive(
+            &format!(r#"RL = {{ resistor = "{r}", between = ["a", "gnd"] }}"#),
+            &format!(r#"p1 = {{ between = ["a", "gnd"], z0 = "{z0}" }}"#),
+        ));
+        let g = s_at(&np, 3e3).s[0];
+        let want = (r - z0) / (r + z0);
+        assert!(
+            (g - Complex64::new(want, 0.0)).norm() < 1e-12,
+            "{r} Ω: {g} vs {want}"
+        );
+        let f = ports::reflection(g);
+        if r == z0 {
+            assert!(f.return_loss_db.is_infinite() && f.vswr == 1.0 && f.mismatch_loss_db == 0.0);
+        } else {
+            // VSWR magnifies Γ's rounding by 1/(1 − |Γ|).
+            let vswr = (1.0 + want.abs()) / (1.0 - want.abs());
+            assert!(
+                rel(f.vswr, vswr) < 1e-11 / (1.0 - want.abs()),
+                "{r}: {} vs {vswr}",
+                f.vswr
+            );
+            assert!((f.return_loss_db + 20.0 * want.abs().log10()).abs() < 1e-9);
+        }
+    }
+}
+
+#[test]
+fn a_series_resistor_between_ports_matches_the_power_wave_closed_form() {
+    // Power waves with real references (Kurokawa): for a series R between z1 and z2,
+    // S11 = (R + z2 − z1)/(R + z1 + z2), S22 = (R + z1 − z2)/(R + z1 + z2),
+    // S21 = S12 = 2√(z1·z2)/(R + z1 + z2) (closed form).
+    for (r, z1, z2) in [
+        (100.0f64, 50.0f64, 50.0f64),
+        (33.0, 50.0, 75.0),
+        (1.0, 10.0, 200.0),
+    ] {
+        let (np, _) = nport(&resistive(
+            &format!(r#"R = {{ resistor = "{r}", between = ["a", "b"] }}"#),
+            &format!(
+                "p1 = {{ between = [\"a\", \"gnd\"], z0 = \"{z1}\" }}\np2 = {{ between = [\"b\", \"gnd\"], z0 = \"{z2}\" }}"
+            ),
+        ));
+        let s = s_at(&np, 5e3).s;
+        let d = r + z1 + z2;
+        let want = [
+            (r + z2 - z1) / d,
+            2.0 * (z1 * z2).sqrt() / d,
+            2.0 * (z1 * z2).sqrt() / d,
+            (r + z1 - z2) / d,
+        ];
+        for (k, w) in want.iter().enumerate() {
+            assert!(
+                (s[k] - Complex64::new(*w, 0.0)).norm() < 1e-12,
+                "{r} {z1} {z2} S[{k}]"
+            );
+        }
+        assert!(ports::reciprocity_error(&s) < 1e-15);
+        assert!(ports::largest_singular_value(&s) <= 1.0 + 1e-12);
+        // A bare series element has no Z matrix, but its ABCD is [[1, R], [0, 1]] — through
+        // Z it is undefined, and z_from_s says so.
+        assert!(ports::z_from_s(&s, &[z1, z2]).is_none());
+    }
+}
+
+#[test]
+fn a_t_network_has_the_closed_form_z_matrix_and_lossless_power_balance() {
+    // T network: Za from port 1 to the middle, Zb from the middle to port 2, Zc from the
+    // middle to ground: Z11 = Za + Zc, Z12 = Z21 = Zc, Z22 = Zb + Zc (closed form); with
+    // reactive arms, |S11|² + |S21|² = 1 (lossless: S is unitary).
+    let (np, _) = nport(
+        r#"
+[sweep]
+from = "1 MHz"
+to = "10 MHz"
+[parts]
+La = { inductor = "1u", between = ["a", "m"] }
+Lb = { inductor = "2u", between = ["m", "b"] }
+Cc = { capacitor = "1n", between = ["m", "gnd"] }
+[responses]
+z = { impedance = ["a", "gnd"] }
+[ports]
+p1 = { between = ["a", "gnd"] }
+p2 = { between = ["b", "gnd"], z0 = "75" }
+"#,
+    );
+    let f = 3.3e6;
+    let w = 2.0 * std::f64::consts::PI * f;
+    let j = Complex64::new(0.0, 1.0);
+    let (za, zb, zc) = (j * w * 1e-6, j * w * 2e-6, (j * w * 1e-9).inv());
+    let p = s_at(&np, f);
+    let z = ports::z_from_s(&p.s, &[50.0, 75.0]).unwrap();
+    let want = [za + zc, zc, zc, zb + zc];
+    for (k, w) in want.iter().enumerate() {
+        assert!(
+            (z[k] - w).norm() < 1e-9 * w.norm(),
+            "Z[{k}] {} vs {w}",
+            z[k]
+        );
+    }
+    let y = ports::y_from_z(&z).unwrap();
+    let det = want[0] * want[3] - want[1] * want[2];
+    assert!((y[0] - want[3] / det).norm() < 1e-9 * y[0].norm());
+    let abcd = ports::abcd_from_z(&z).unwrap();
+    // AD − BC = 1 for a reciprocal two-port (closed form).
+    assert!((abcd[0] * abcd[3] - abcd[1] * abcd[2] - 1.0).norm() < 1e-9);
+    for col in 0..2 {
+        let power = p.s[col].norm_sqr() + p.s[2 + col].norm_sqr();
+        assert!((power - 1.0).abs() < 1e-12, "column {col}: {power}");
+    }
+    assert!((ports::largest_singular_value(&p.s) - 1.0).abs() < 1e-9);
+}
+
+#[test]
+fn a_voltage_source_across_a_port_is_refused() {
+    let d = design::parse(
+        r#"
+[parts]
+V1 = { voltage = "1", between = ["a", "gnd"] }
+R1 = { resistor = "50", between = ["a", "gnd"] }
+[responses]
+z = { impedance = ["a", "gnd"] }
+[ports]
+p1 = { between = ["gnd", "a"] }
+"#,
+    )
+    .unwrap();
+    let e = NPort::new(&d.network, d.ports).err().unwrap().to_string();
+    assert!(
+        e.starts_with("port p1 sits across voltage source V1"),
+        "{e}"
+    );
+}
+
+#[test]
+fn touchstone_files_read_back_as_written() {
+    // Our writer against our reader for 1, 2 and 3 ports, versions 1.1 and 2.0 (the
+    // format's rules as we read the open specification, from memory: option line, the
+    // two-port 21_12 order, rows of at most four pairs, the 2.0 keywords).
+    let three = r#"
+[sweep]
+from = "1 MHz"
+to = "100 MHz"
+per_decade = 7
+[parts]
+R1 = { resistor = "10", between = ["a", "m"] }
+L1 = { inductor = "100n", between = ["m", "b"] }
+C1 = { capacitor = "47p", between = ["m", "c"] }
+R2 = { resistor = "1k", between = ["c", "gnd"] }
+C2 = { capacitor = "10p", between = ["b", "gnd"] }
+[responses]
+z = { impedance = ["a", "gnd"] }
+[ports]
+p1 = { between = ["a", "gnd"] }
+p2 = { between = ["b", "gnd"] }
+p3 = { between = ["c", "gnd"], z0 = "75" }
+"#;
+    for keep in [1usize, 2, 3] {
+        let mut text = three.to_string();
+        if keep < 3 {
+            text = text.replace("p3 = { between = [\"c\", \"gnd\"], z0 = \"75\" }", "");
+        }
+        if keep < 2 {
+            text = text.replace("p2 = { between = [\"b\", \"gnd\"] }", "");
+        }
+        let (np, grid) = nport(&text);
+        let pts = np.sweep(&grid).unwrap();
+        for version in [Version::V1, Version::V2] {
+            let mut out = Vec::new();
+            let r = touchstone::write(&mut out, version, "round trip", np.ports(), &pts);
+            if keep == 3 && version == Version::V1 {
+                // 1.1 cannot hold two reference impedances.
+                assert!(r.is_err());
+                continue;
+            }
+            r.unwrap();
+            let text = String::from_utf8(out).unwrap();
+            if keep == 3 {
+                assert!(text
+                    .lines()
+                    .all(|l| l.split_whitespace().count() <= 9 || l.starts_with('!')));
+            }
+            let back = touchstone::read(&text, Some(keep)).unwrap();
+            assert_eq!(back.version, version);
+            assert_eq!(back.freqs, grid.points());
+            assert_eq!(back.z0, np.ports().iter().map(|p| p.z0).collect::<Vec<_>>());
+            for (p, s) in pts.iter().zip(&back.s) {
+                assert_eq!(&p.s, s, "{keep} ports, {version:?}");
+            }
+        }
+    }
+    // A file in MA format with MHz, as another tool might write it (hand-made).
+    let ma = "! hand-made\n# MHZ S MA R 50\n1 0.5 90 0.25 0 0.25 0 0.5 -90\n";
+    let d = touchstone::read(ma, Some(2)).unwrap();
+    assert_eq!(d.freqs, vec![1e6]);
+    assert!((d.s[0][0] - Complex64::new(0.0, 0.5)).norm() < 1e-15);
+    assert!((d.s[0][1] - Complex64::new(0.25, 0.0)).norm() < 1e-15);
+}
