@@ -237,7 +237,7 @@ pub struct Part {
     /// Manufacturing tolerance of a single-pole op-amp's gain-bandwidth product, where given.
     pub gbw_tolerance: Option<Tolerance>,
     /// An op-amp's input noise, where given.
-    pub noise: Option<OpampNoise>,
+    pub noise: Option<Box<OpampNoise>>,
 }
 
 /// How a toleranced value spreads over the parts built.
@@ -979,7 +979,7 @@ impl NetworkBuilder {
                     PartKind::IdealOpamp { .. } | PartKind::SinglePoleOpamp { .. }
                 ) =>
             {
-                p.noise = Some(noise);
+                p.noise = Some(Box::new(noise));
                 Ok(())
             }
             _ => Err(NetworkError::WrongKind {

@@ -129,7 +129,9 @@ impl NoisePlan {
                     inverting,
                     ..
                 } => {
-                    let Some(n) = p.noise else { continue };
+                    let Some(n) = p.noise.as_deref().copied() else {
+                        continue;
+                    };
                     // The input voltage noise enters the op-amp's own equation: the ideal
                     // op-amp's v+ − v− = e_n, or the single-pole state's A0·(v+ + e_n − v−).
                     let row = match p.kind {
