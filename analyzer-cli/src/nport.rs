@@ -20,6 +20,9 @@ pub struct PortsArgs {
     /// Return loss (dB) whose band is reported per port.
     #[arg(long, value_name = "DB", default_value_t = 10.0)]
     return_loss: f64,
+    /// Draw this VSWR's circle on each port's Smith chart (e.g. 2).
+    #[arg(long, value_name = "S")]
+    vswr: Option<f64>,
 }
 
 fn db(z: analyzer_core::ports::Complex) -> f64 {
@@ -74,6 +77,30 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
         csv.push('\n');
     }
     staging.bytes(&out_dir.join("ports.csv"), csv.as_bytes())?;
+    if !c.no_plot {
+        for (i, p) in list.iter().enumerate() {
+            let gamma: Vec<(f64, analyzer_core::ports::Complex)> =
+                pts.iter().map(|q| (q.freq, q.s[i * n + i])).collect();
+            let svg = analyzer_core::export::render_smith_svg(&analyzer_core::export::SmithPlot {
+                title: format!(
+                    "{} — port {}: Γ against {}",
+                    d.network.title,
+                    p.name,
+                    format_eng(p.z0, 4, "Ω")
+                ),
+                gamma: &gamma,
+                vswr_circle: args.vswr,
+            })
+            .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+            staging.bytes(
+                &out_dir.join(format!(
+                    "{}-smith.svg",
+                    crate::output::safe_file_name(&p.name)
+                )),
+                svg.as_bytes(),
+            )?;
+        }
+    }
 
     let mut text = String::new();
     let _ = writeln!(text, "{}", d.network.title);

@@ -1108,3 +1108,143 @@ pub fn render_lines_svg(input: &LinesPlot<'_>) -> Result<String, PlotError> {
     }
     Ok(svg)
 }
+
+/// What a Smith chart shows: one port's reflection coefficient over frequency.
+#[derive(Clone, Debug)]
+pub struct SmithPlot<'a> {
+    /// Title line.
+    pub title: String,
+    /// (frequency, Γ) ascending in frequency.
+    pub gamma: &'a [(f64, num_complex::Complex64)],
+    /// A VSWR circle to draw (|Γ| = (s − 1)/(s + 1)), where wanted.
+    pub vswr_circle: Option<f64>,
+}
+
+/// Renders a Smith chart of our own look: the unit circle, circles of constant normalised
+/// resistance r ∈ {0.2, 0.5, 1, 2, 5} and arcs of constant reactance x ∈ ±{0.2, 0.5, 1, 2, 5}
+/// (labelled), the trace of Γ with the first and last frequency and each decade marked, and
+/// a VSWR circle.
+pub fn render_smith_svg(input: &SmithPlot<'_>) -> Result<String, PlotError> {
+    use std::f64::consts::PI;
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, (720, 760)).into_drawing_area();
+        let body = titled(&root, &input.title)?;
+        let mut chart = ChartBuilder::on(&body)
+            .margin(16)
+            .build_cartesian_2d(-1.12f64..1.12f64, -1.12f64..1.12f64)
+            .map_err(perr)?;
+        let circle = |cx: f64, cy: f64, r: f64| -> Vec<(f64, f64)> {
+            (0..=360)
+                .map(|k| {
+                    let t = 2.0 * PI * f64::from(k) / 360.0;
+                    (cx + r * t.cos(), cy + r * t.sin())
+                })
+                .filter(|(x, y)| x * x + y * y <= 1.0 + 1e-9)
+                .collect()
+        };
+        // Grid: the real axis, circles of constant r, arcs of constant x.
+        chart
+            .draw_series(LineSeries::new(
+                [(-1.0, 0.0), (1.0, 0.0)],
+                DECADE.stroke_width(1),
+            ))
+            .map_err(perr)?;
+        for r in [0.2, 0.5, 1.0, 2.0, 5.0] {
+            chart
+                .draw_series(LineSeries::new(
+                    circle(r / (1.0 + r), 0.0, 1.0 / (1.0 + r)),
+                    DECADE.stroke_width(1),
+                ))
+                .map_err(perr)?;
+            let x0 = (r - 1.0) / (r + 1.0);
+            chart
+                .draw_series(std::iter::once(Text::new(
+                    format!("{r}"),
+                    (x0 + 0.01, 0.02),
+                    ("sans-serif", 11).into_font().color(&INK),
+                )))
+                .map_err(perr)?;
+        }
+        for x in [0.2f64, 0.5, 1.0, 2.0, 5.0] {
+            for sign in [1.0, -1.0] {
+                let xs = sign * x;
+                // The arc of constant x runs inside the unit circle: parametrise by r.
+                let pts: Vec<(f64, f64)> = (0..=400)
+                    .map(|k| {
+                        let r = (f64::from(k) / 40.0).powi(2);
+                        let z = num_complex::Complex64::new(r, xs);
+                        let g = (z - 1.0) / (z + 1.0);
+                        (g.re, g.im)
+                    })
+                    .collect();
+                chart
+                    .draw_series(LineSeries::new(pts, MINOR.mix(1.0).stroke_width(1)))
+                    .map_err(perr)?;
+                let z = num_complex::Complex64::new(0.0, xs);
+                let g = (z - 1.0) / (z + 1.0);
+                chart
+                    .draw_series(std::iter::once(Text::new(
+                        format!("{}{x}j", if sign < 0.0 { "−" } else { "+" }),
+                        (g.re * 1.04, g.im * 1.04),
+                        ("sans-serif", 11).into_font().color(&INK),
+                    )))
+                    .map_err(perr)?;
+            }
+        }
+        chart
+            .draw_series(LineSeries::new(circle(0.0, 0.0, 1.0), INK.stroke_width(2)))
+            .map_err(perr)?;
+        if let Some(s) = input.vswr_circle.filter(|s| *s >= 1.0 && s.is_finite()) {
+            let g = (s - 1.0) / (s + 1.0);
+            chart
+                .draw_series(LineSeries::new(circle(0.0, 0.0, g), MASK.stroke_width(2)))
+                .map_err(perr)?
+                .label(format!("VSWR {s}"))
+                .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], MASK.stroke_width(2)));
+        }
+        let pts: Vec<(f64, f64)> = input
+            .gamma
+            .iter()
+            .map(|(_, g)| (g.re, g.im))
+            .filter(|p| p.0.is_finite() && p.1.is_finite())
+            .collect();
+        chart
+            .draw_series(LineSeries::new(pts, TRACE.stroke_width(2)))
+            .map_err(perr)?
+            .label("Γ")
+            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], TRACE.stroke_width(2)));
+        // Markers: the ends and each decade crossed.
+        let mut marks: Vec<(f64, num_complex::Complex64)> = Vec::new();
+        if let (Some(first), Some(last)) = (input.gamma.first(), input.gamma.last()) {
+            marks.push(*first);
+            for w in input.gamma.windows(2) {
+                let (a, b) = (w[0].0.log10().floor(), w[1].0.log10().floor());
+                if b > a && w[1].0 != last.0 {
+                    marks.push(w[1]);
+                }
+            }
+            marks.push(*last);
+        }
+        for (f, g) in marks {
+            let mark = EmptyElement::at((g.re, g.im))
+                + Circle::new((0, 0), 3, MARK.filled())
+                + Text::new(
+                    tidy_label(format_eng(f, 3, "Hz")),
+                    (5, -12),
+                    ("sans-serif", 11).into_font().color(&MARK),
+                );
+            chart.draw_series(std::iter::once(mark)).map_err(perr)?;
+        }
+        chart
+            .configure_series_labels()
+            .background_style(WHITE.mix(0.85))
+            .border_style(MINOR)
+            .label_font(("sans-serif", 12).into_font().color(&INK))
+            .position(SeriesLabelPosition::UpperRight)
+            .draw()
+            .map_err(perr)?;
+        root.present().map_err(perr)?;
+    }
+    Ok(svg)
+}
