@@ -512,6 +512,21 @@ pub fn render_svg(input: &PlotInput<'_>) -> Result<String, PlotError> {
     Ok(svg)
 }
 
+/// Draws the legend of a chart's labelled series in our style.
+fn legend<'b, CT: plotters::coord::CoordTranslate>(
+    chart: &mut ChartContext<'b, SVGBackend<'b>, CT>,
+    position: SeriesLabelPosition,
+) -> Result<(), PlotError> {
+    chart
+        .configure_series_labels()
+        .background_style(WHITE.mix(0.85))
+        .border_style(MINOR)
+        .label_font(("sans-serif", 12).into_font().color(&INK))
+        .position(position)
+        .draw()
+        .map_err(perr)
+}
+
 type SvgArea<'b> = DrawingArea<SVGBackend<'b>, plotters::coord::Shift>;
 
 /// Fills a plot white, writes its title line, and returns the area below the title.
@@ -621,14 +636,7 @@ pub fn render_noise_svg(input: &NoisePlot<'_>) -> Result<String, PlotError> {
             .map_err(perr)?
             .label("total")
             .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], TRACE.stroke_width(3)));
-        chart
-            .configure_series_labels()
-            .background_style(WHITE.mix(0.85))
-            .border_style(MINOR)
-            .label_font(("sans-serif", 12).into_font().color(&INK))
-            .position(SeriesLabelPosition::UpperRight)
-            .draw()
-            .map_err(perr)?;
+        legend(&mut chart, SeriesLabelPosition::UpperRight)?;
         root.present().map_err(perr)?;
     }
     Ok(svg)
@@ -1017,14 +1025,7 @@ pub fn render_envelope_svg(input: &EnvelopePlot<'_>) -> Result<String, PlotError
             .map_err(perr)?
             .label("nominal")
             .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], TRACE.stroke_width(2)));
-        chart
-            .configure_series_labels()
-            .background_style(WHITE.mix(0.85))
-            .border_style(MINOR)
-            .label_font(("sans-serif", 12).into_font().color(&INK))
-            .position(SeriesLabelPosition::LowerLeft)
-            .draw()
-            .map_err(perr)?;
+        legend(&mut chart, SeriesLabelPosition::LowerLeft)?;
         root.present().map_err(perr)?;
     }
     Ok(svg)
@@ -1096,14 +1097,7 @@ pub fn render_lines_svg(input: &LinesPlot<'_>) -> Result<String, PlotError> {
                     PathElement::new(vec![(x, y), (x + 18, y)], colour.stroke_width(width))
                 });
         }
-        chart
-            .configure_series_labels()
-            .background_style(WHITE.mix(0.85))
-            .border_style(MINOR)
-            .label_font(("sans-serif", 12).into_font().color(&INK))
-            .position(SeriesLabelPosition::LowerLeft)
-            .draw()
-            .map_err(perr)?;
+        legend(&mut chart, SeriesLabelPosition::LowerLeft)?;
         root.present().map_err(perr)?;
     }
     Ok(svg)
@@ -1236,14 +1230,7 @@ pub fn render_smith_svg(input: &SmithPlot<'_>) -> Result<String, PlotError> {
                 );
             chart.draw_series(std::iter::once(mark)).map_err(perr)?;
         }
-        chart
-            .configure_series_labels()
-            .background_style(WHITE.mix(0.85))
-            .border_style(MINOR)
-            .label_font(("sans-serif", 12).into_font().color(&INK))
-            .position(SeriesLabelPosition::UpperRight)
-            .draw()
-            .map_err(perr)?;
+        legend(&mut chart, SeriesLabelPosition::UpperRight)?;
         root.present().map_err(perr)?;
     }
     Ok(svg)
