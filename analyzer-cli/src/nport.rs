@@ -200,6 +200,59 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
             }
         }
     }
+    // An EMI filter's insertion loss between the usual terminations (two ports, one z0).
+    if n == 2 && z0[0] == z0[1] {
+        let mut emi = String::from("frequency_hz");
+        for (zs, zl) in ports::EMI_TERMINATIONS {
+            let _ = write!(emi, ",il_{zs}_{zl}_db");
+        }
+        emi.push('\n');
+        let mut rows: Vec<(f64, Vec<f64>)> = Vec::new();
+        for p in &pts {
+            let Some(abcd) = ports::abcd_from_s(&p.s, z0[0]) else {
+                continue;
+            };
+            let il: Vec<f64> = ports::EMI_TERMINATIONS
+                .iter()
+                .map(|&(zs, zl)| ports::insertion_loss_db(&abcd, zs, zl))
+                .collect();
+            let _ = write!(emi, "{}", p.freq);
+            for x in &il {
+                let _ = write!(emi, ",{x}");
+            }
+            emi.push('\n');
+            rows.push((p.freq, il));
+        }
+        staging.bytes(&out_dir.join("emi.csv"), emi.as_bytes())?;
+        let _ = writeln!(
+            text,
+            "\ninsertion loss between terminations (source/load; CISPR 17's method, from memory), dB:"
+        );
+        let _ = writeln!(
+            text,
+            "  {:>12}{:>12}{:>14}{:>14}",
+            "frequency", "50/50 Ω", "0.1/100 Ω", "100/0.1 Ω"
+        );
+        // At the decades (and the ends) of the sweep.
+        let mut shown: Vec<&(f64, Vec<f64>)> = Vec::new();
+        for (k, r) in rows.iter().enumerate() {
+            let decade = |f: f64| f.log10().floor();
+            let starts_decade = k > 0 && decade(r.0) > decade(rows[k - 1].0);
+            if k == 0 || k + 1 == rows.len() || starts_decade {
+                shown.push(r);
+            }
+        }
+        for (f, il) in shown {
+            let _ = writeln!(
+                text,
+                "  {:>12}{:>12.2}{:>14.2}{:>14.2}",
+                hz(*f),
+                il[0],
+                il[1],
+                il[2]
+            );
+        }
+    }
     let recip = pts
         .iter()
         .map(|p| ports::reciprocity_error(&p.s))

@@ -323,3 +323,37 @@ pub fn largest_singular_value(s: &[Complex64]) -> f64 {
         .and_then(|v| v.first().copied())
         .unwrap_or(f64::NAN)
 }
+
+/// ABCD of a two-port from its S with one real reference impedance `z0` on both ports
+/// (the usual conversion; it exists wherever S21 ≠ 0, also for a bare series element):
+/// A = ((1+S11)(1−S22) + S12S21)/(2S21), B = z0((1+S11)(1+S22) − S12S21)/(2S21),
+/// C = ((1−S11)(1−S22) − S12S21)/(2z0·S21), D = ((1−S11)(1+S22) + S12S21)/(2S21).
+pub fn abcd_from_s(s: &[Complex64], z0: f64) -> Option<[Complex64; 4]> {
+    if s.len() != 4 || s[2].norm() == 0.0 {
+        return None;
+    }
+    let (s11, s12, s21, s22) = (s[0], s[1], s[2], s[3]);
+    let one = Complex64::new(1.0, 0.0);
+    let d = 2.0 * s21;
+    let out = [
+        ((one + s11) * (one - s22) + s12 * s21) / d,
+        z0 * ((one + s11) * (one + s22) - s12 * s21) / d,
+        ((one - s11) * (one - s22) - s12 * s21) / (d * z0),
+        ((one - s11) * (one + s22) + s12 * s21) / d,
+    ];
+    finite(&out).then_some(out)
+}
+
+/// Insertion loss (dB) of a two-port between a source resistance `zs` and a load `zl`: the
+/// load voltage without the two-port (source straight into load) over the load voltage with
+/// it, `20·log10|(A·zl + B + C·zs·zl + D·zs)/(zs + zl)|`.
+pub fn insertion_loss_db(abcd: &[Complex64; 4], zs: f64, zl: f64) -> f64 {
+    let [a, b, c, d] = *abcd;
+    let with = a * zl + b + c * zs * zl + d * zs;
+    20.0 * (with.norm() / (zs + zl)).log10()
+}
+
+/// The terminations an EMI filter's insertion loss is judged between: 50 Ω/50 Ω and the
+/// asymmetric 0.1 Ω/100 Ω and 100 Ω/0.1 Ω (source/load), as in the published insertion-loss
+/// method for suppression filters (CISPR 17; from memory).
+pub const EMI_TERMINATIONS: [(f64, f64); 3] = [(50.0, 50.0), (0.1, 100.0), (100.0, 0.1)];

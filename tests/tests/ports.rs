@@ -236,3 +236,44 @@ p3 = { between = ["c", "gnd"], z0 = "75" }
     assert!((d.s[0][0] - Complex64::new(0.0, 0.5)).norm() < 1e-15);
     assert!((d.s[0][1] - Complex64::new(0.25, 0.0)).norm() < 1e-15);
 }
+
+#[test]
+fn insertion_loss_between_terminations_matches_the_closed_forms() {
+    // A series inductor between source zs and load zl: IL = 20·log10|1 + jωL/(zs + zl)|; a
+    // shunt capacitor: IL = 20·log10|1 + jωC·zs·zl/(zs + zl)| (closed forms), for the 50/50,
+    // 0.1/100 and 100/0.1 Ω terminations.
+    let series = nport(&resistive(
+        r#"L1 = { inductor = "10u", between = ["a", "b"] }
+Rb = { resistor = "1G", between = ["b", "gnd"] }
+Ra = { resistor = "1G", between = ["a", "gnd"] }"#,
+        "p1 = { between = [\"a\", \"gnd\"] }\np2 = { between = [\"b\", \"gnd\"] }",
+    ))
+    .0;
+    let shunt = nport(&resistive(
+        r#"C1 = { capacitor = "100n", between = ["a", "gnd"] }
+Rab = { resistor = "1u", between = ["a", "b"] }"#,
+        "p1 = { between = [\"a\", \"gnd\"] }\np2 = { between = [\"b\", \"gnd\"] }",
+    ))
+    .0;
+    for f in [1e3, 3.3e3, 9e3] {
+        let w = 2.0 * std::f64::consts::PI * f;
+        let j = Complex64::new(0.0, 1.0);
+        for (zs, zl) in ports::EMI_TERMINATIONS {
+            let a = ports::abcd_from_s(&s_at(&series, f).s, 50.0).unwrap();
+            let want = 20.0 * (1.0 + j * w * 10e-6 / (zs + zl)).norm().log10();
+            let got = ports::insertion_loss_db(&a, zs, zl);
+            // The 1 GΩ shunts are there to give every node a path; they move IL by < 1e-9 dB.
+            assert!(
+                (got - want).abs() < 1e-6,
+                "series L {zs}/{zl} at {f}: {got} vs {want}"
+            );
+            let a = ports::abcd_from_s(&s_at(&shunt, f).s, 50.0).unwrap();
+            let want = 20.0 * (1.0 + j * w * 100e-9 * zs * zl / (zs + zl)).norm().log10();
+            let got = ports::insertion_loss_db(&a, zs, zl);
+            assert!(
+                (got - want).abs() < 1e-6,
+                "shunt C {zs}/{zl} at {f}: {got} vs {want}"
+            );
+        }
+    }
+}
