@@ -609,6 +609,35 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
                 }
                 continue;
             }
+            if spec.loop_gain {
+                // The Nyquist chart, from the trace (at most about 4,000 points drawn).
+                let t = &traces[i];
+                let step = (t.db.len() / 4000).max(1);
+                let pts: Vec<(f64, analyzer_core::ports::Complex)> =
+                    (0..t.db.len().min(grid.len()))
+                        .step_by(step)
+                        .map(|k| {
+                            let m = 10f64.powf(t.db[k] / 20.0);
+                            let a = f64::from(t.phase_deg[k]).to_radians();
+                            (grid.at(k), analyzer_core::ports::Complex::from_polar(m, a))
+                        })
+                        .filter(|p| p.0 > 0.0)
+                        .collect();
+                let m = figures[i].margins.as_ref();
+                let plot = export::NyquistPlot {
+                    title: format!("{title} — {}: Nyquist chart", spec.name),
+                    loop_gain: &pts,
+                    phase_margin: m.and_then(|m| m.gain_crossover_hz.zip(m.phase_margin_deg)),
+                    gain_margin: m.and_then(|m| m.phase_crossover_hz.zip(m.gain_margin_db)),
+                };
+                if let Ok(svg) = export::render_nyquist_svg(&plot) {
+                    let path = out_dir.join(format!(
+                        "{}-nyquist.svg",
+                        output::safe_file_name(&spec.name)
+                    ));
+                    staging.bytes(&path, svg.as_bytes())?;
+                }
+            }
             match output::svg(title, spec, &grid, &traces[i], &figures[i], !args.wrapped)? {
                 Some(svg) => staging.bytes(&path, svg.as_bytes())?,
                 None if !args.quiet => {

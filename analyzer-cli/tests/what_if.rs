@@ -174,3 +174,25 @@ fn ports_write_touchstone_and_csv_that_agree() {
     let err = String::from_utf8_lossy(&out.get_output().stderr).to_string();
     assert!(err.contains("the design has no [ports]"), "{err}");
 }
+
+#[test]
+fn a_loop_gain_gets_a_nyquist_chart_with_its_margin() {
+    let design = Path::new(env!("CARGO_MANIFEST_DIR")).join("../sweeps/cable-driver-loop.toml");
+    let tmp = tempfile::tempdir().unwrap();
+    stdout(
+        analyzer()
+            .args(["sweep", "-q", "-o"])
+            .arg(tmp.path())
+            .arg(&design),
+    );
+    let svg = std::fs::read_to_string(tmp.path().join("loop-nyquist.svg")).unwrap();
+    let doc = roxmltree::Document::parse(&svg).unwrap();
+    let texts: Vec<&str> = doc.descendants().filter_map(|n| n.text()).collect();
+    assert!(texts.iter().any(|t| t.contains("PM 14.4°")), "{texts:?}");
+    assert!(texts.iter().any(|t| t.contains("compressed")));
+    // The compression keeps the unit circle in place (continuous at 1).
+    use analyzer_core::export::nyquist_radius;
+    assert_eq!(nyquist_radius(1.0), 1.0);
+    assert_eq!(nyquist_radius(0.5), 0.5);
+    assert!((nyquist_radius(1e5) - 6.0).abs() < 1e-12);
+}

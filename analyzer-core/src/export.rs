@@ -1235,3 +1235,170 @@ pub fn render_smith_svg(input: &SmithPlot<'_>) -> Result<String, PlotError> {
     }
     Ok(svg)
 }
+
+/// What a Nyquist chart shows: a loop gain L(jω) over the sweep, with its margins.
+#[derive(Clone, Debug)]
+pub struct NyquistPlot<'a> {
+    /// Title line.
+    pub title: String,
+    /// (frequency, L) ascending in frequency.
+    pub loop_gain: &'a [(f64, num_complex::Complex64)],
+    /// Gain crossover (Hz) and phase margin (degrees), where found.
+    pub phase_margin: Option<(f64, f64)>,
+    /// Phase crossover (Hz) and gain margin (dB), where found.
+    pub gain_margin: Option<(f64, f64)>,
+}
+
+/// The radius a loop gain of magnitude ρ is drawn at: ρ itself up to 1, then 1 + log10 ρ,
+/// so the unit circle and the −1 point keep their places and a trace that goes far out
+/// (a loop gain of 10⁵ at low frequency) stays on the page.
+pub fn nyquist_radius(rho: f64) -> f64 {
+    if rho <= 1.0 {
+        rho
+    } else {
+        1.0 + rho.log10()
+    }
+}
+
+/// Renders a Nyquist chart of our own look: L(jω) for ω > 0 bold and its mirror for ω < 0
+/// light, radius compressed beyond the unit circle (see [`nyquist_radius`], said in the
+/// chart), the unit circle, the −1 point, the gain crossover with the phase margin and the
+/// phase crossover with the gain margin marked.
+pub fn render_nyquist_svg(input: &NyquistPlot<'_>) -> Result<String, PlotError> {
+    use std::f64::consts::PI;
+    let map = |l: num_complex::Complex64| {
+        let r = nyquist_radius(l.norm());
+        let a = l.arg();
+        (r * a.cos(), r * a.sin())
+    };
+    let pts: Vec<(f64, f64)> = input
+        .loop_gain
+        .iter()
+        .map(|(_, l)| map(*l))
+        .filter(|p| p.0.is_finite() && p.1.is_finite())
+        .collect();
+    let extent = pts
+        .iter()
+        .fold(1.2f64, |m, p| m.max(p.0.abs()).max(p.1.abs()))
+        * 1.08;
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, (720, 760)).into_drawing_area();
+        let body = titled(&root, &input.title)?;
+        let mut chart = ChartBuilder::on(&body)
+            .margin(16)
+            .build_cartesian_2d(-extent..extent, -extent..extent)
+            .map_err(perr)?;
+        chart
+            .draw_series(LineSeries::new(
+                [(-extent, 0.0), (extent, 0.0)],
+                DECADE.stroke_width(1),
+            ))
+            .map_err(perr)?;
+        chart
+            .draw_series(LineSeries::new(
+                [(0.0, -extent), (0.0, extent)],
+                DECADE.stroke_width(1),
+            ))
+            .map_err(perr)?;
+        // Rings at |L| = 10, 100, … on the compressed scale.
+        let mut ring = 10.0;
+        while nyquist_radius(ring) < extent {
+            let r = nyquist_radius(ring);
+            chart
+                .draw_series(LineSeries::new(
+                    (0..=360).map(|k| {
+                        let t = 2.0 * PI * f64::from(k) / 360.0;
+                        (r * t.cos(), r * t.sin())
+                    }),
+                    MINOR.stroke_width(1),
+                ))
+                .map_err(perr)?;
+            chart
+                .draw_series(std::iter::once(Text::new(
+                    format!("|L| = {}", tidy_label(format_eng(ring, 3, "")).trim()),
+                    (r * 0.72, r * 0.72),
+                    ("sans-serif", 11).into_font().color(&INK),
+                )))
+                .map_err(perr)?;
+            ring *= 10.0;
+        }
+        chart
+            .draw_series(LineSeries::new(
+                (0..=360).map(|k| {
+                    let t = 2.0 * PI * f64::from(k) / 360.0;
+                    (t.cos(), t.sin())
+                }),
+                INK.stroke_width(1),
+            ))
+            .map_err(perr)?
+            .label("unit circle")
+            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], INK.stroke_width(1)));
+        chart
+            .draw_series(LineSeries::new(
+                pts.iter().map(|p| (p.0, -p.1)),
+                TRACE.mix(0.35).stroke_width(1),
+            ))
+            .map_err(perr)?
+            .label("ω < 0 (mirror)")
+            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], TRACE.mix(0.35)));
+        chart
+            .draw_series(LineSeries::new(pts.iter().copied(), TRACE.stroke_width(2)))
+            .map_err(perr)?
+            .label("L(jω), ω > 0")
+            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], TRACE.stroke_width(2)));
+        let minus_one = EmptyElement::at((-1.0, 0.0))
+            + Cross::new((0, 0), 6, MASK.stroke_width(2))
+            + Text::new("−1", (6, 4), ("sans-serif", 13).into_font().color(&MASK));
+        chart
+            .draw_series(std::iter::once(minus_one))
+            .map_err(perr)?;
+        let at = |f: f64| {
+            input
+                .loop_gain
+                .iter()
+                .min_by(|a, b| (a.0 / f).ln().abs().total_cmp(&(b.0 / f).ln().abs()))
+                .map(|(_, l)| map(*l))
+        };
+        let mut marks: Vec<((f64, f64), String)> = Vec::new();
+        if let Some((f, pm)) = input.phase_margin {
+            if let Some(p) = at(f) {
+                marks.push((
+                    p,
+                    format!(
+                        "gain crossover {}, PM {pm:.1}°",
+                        tidy_label(format_eng(f, 3, "Hz"))
+                    ),
+                ));
+            }
+        }
+        if let Some((f, gm)) = input.gain_margin {
+            if let Some(p) = at(f) {
+                marks.push((
+                    p,
+                    format!(
+                        "phase crossover {}, GM {gm:.1} dB",
+                        tidy_label(format_eng(f, 3, "Hz"))
+                    ),
+                ));
+            }
+        }
+        for (k, (p, label)) in marks.into_iter().enumerate() {
+            let dy = 14 + 16 * k as i32;
+            let mark = EmptyElement::at(p)
+                + Circle::new((0, 0), 4, MARK.filled())
+                + Text::new(label, (8, dy), ("sans-serif", 12).into_font().color(&MARK));
+            chart.draw_series(std::iter::once(mark)).map_err(perr)?;
+        }
+        chart
+            .draw_series(std::iter::once(Text::new(
+                "radius: |L| up to 1, 1 + log10|L| beyond (compressed)".to_string(),
+                (-extent * 0.97, -extent * 0.95),
+                ("sans-serif", 11).into_font().color(&INK),
+            )))
+            .map_err(perr)?;
+        legend(&mut chart, SeriesLabelPosition::UpperLeft)?;
+        root.present().map_err(perr)?;
+    }
+    Ok(svg)
+}
