@@ -277,3 +277,107 @@ Rab = { resistor = "1u", between = ["a", "b"] }"#,
         }
     }
 }
+
+/// A random LC ladder two-port (series inductors, shunt capacitors; no loss anywhere)
+/// between ports at its ends.
+fn lc_ladder(values: &[(bool, f64)]) -> String {
+    let mut parts = String::new();
+    let mut node = 0;
+    for (k, &(series, e)) in values.iter().enumerate() {
+        if series {
+            parts += &format!(
+                "L{k} = {{ inductor = \"{:e}\", between = [\"n{node}\", \"n{}\"] }}\n",
+                10f64.powf(-7.0 + 2.0 * e),
+                node + 1
+            );
+            node += 1;
+        } else {
+            parts += &format!(
+                "C{k} = {{ capacitor = \"{:e}\", between = [\"n{node}\", \"gnd\"] }}\n",
+                10f64.powf(-11.0 + 2.0 * e)
+            );
+        }
+    }
+    if node == 0 {
+        parts += "Lthrough = { inductor = \"1u\", between = [\"n0\", \"n1\"] }\n";
+        node = 1;
+    }
+    format!(
+        "[sweep]\nfrom = \"1 MHz\"\nto = \"100 MHz\"\nper_decade = 5\n[parts]\n{parts}[responses]\nz = {{ impedance = [\"n0\", \"gnd\"] }}\n[ports]\np1 = {{ between = [\"n0\", \"gnd\"] }}\np2 = {{ between = [\"n{node}\", \"gnd\"], z0 = \"75\" }}\n"
+    )
+}
+
+proptest::proptest! {
+    #![proptest_config(proptest::prelude::ProptestConfig { cases: 48, ..Default::default() })]
+
+    /// A lossless two-port conserves power: |S11|² + |S21|² = 1 and |S12|² + |S22|² = 1
+    /// (closed form: S is unitary), at every frequency, for random LC ladders.
+    #[test]
+    fn lossless_two_ports_conserve_power(
+        values in proptest::collection::vec((proptest::bool::ANY, 0.0f64..1.0), 1..8),
+    ) {
+        let (np, grid) = nport(&lc_ladder(&values));
+        for p in np.sweep(&grid).unwrap() {
+            for col in 0..2 {
+                let power = p.s[col].norm_sqr() + p.s[2 + col].norm_sqr();
+                proptest::prop_assert!((power - 1.0).abs() < 1e-12, "{power} at {} Hz", p.freq);
+            }
+        }
+    }
+}
+
+#[test]
+fn conversions_round_trip_and_agree_with_each_other() {
+    // The standard two-port conversions (S ↔ Z ↔ Y ↔ ABCD, as tabulated in Pozar's
+    // Microwave Engineering, table 4.2; from memory): S → Z → S is the identity, Y·Z = I, and
+    // ABCD from S equals ABCD from Z, on a lossy π network at several frequencies.
+    let (np, grid) = nport(
+        r#"
+[sweep]
+from = "100 kHz"
+to = "100 MHz"
+per_decade = 3
+[parts]
+C1 = { capacitor = "220p", between = ["a", "gnd"] }
+R1 = { resistor = "12", between = ["a", "m"] }
+L1 = { inductor = "3.3u", between = ["m", "b"] }
+C2 = { capacitor = "470p", between = ["b", "gnd"] }
+R2 = { resistor = "2k", between = ["b", "gnd"] }
+[responses]
+z = { impedance = ["a", "gnd"] }
+[ports]
+p1 = { between = ["a", "gnd"] }
+p2 = { between = ["b", "gnd"] }
+"#,
+    );
+    for p in np.sweep(&grid).unwrap() {
+        let z0 = [50.0, 50.0];
+        let z = ports::z_from_s(&p.s, &z0).unwrap();
+        let back = ports::s_from_z(&z, &z0).unwrap();
+        for (a, b) in back.iter().zip(&p.s) {
+            assert!((a - b).norm() < 1e-12, "S → Z → S at {} Hz", p.freq);
+        }
+        let y = ports::y_from_z(&z).unwrap();
+        let yz = [
+            y[0] * z[0] + y[1] * z[2],
+            y[0] * z[1] + y[1] * z[3],
+            y[2] * z[0] + y[3] * z[2],
+            y[2] * z[1] + y[3] * z[3],
+        ];
+        for (k, v) in yz.iter().enumerate() {
+            let want = if k == 0 || k == 3 { 1.0 } else { 0.0 };
+            assert!((v - want).norm() < 1e-9, "Y·Z at {} Hz", p.freq);
+        }
+        let (a1, a2) = (
+            ports::abcd_from_s(&p.s, 50.0).unwrap(),
+            ports::abcd_from_z(&z).unwrap(),
+        );
+        for (x, y) in a1.iter().zip(&a2) {
+            assert!(
+                (x - y).norm() < 1e-9 * (1.0 + y.norm()),
+                "ABCD at {} Hz",
+                p.freq
+            );
+        }
+    }
+}
