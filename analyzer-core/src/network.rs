@@ -559,6 +559,53 @@ impl Network {
         Ok(net)
     }
 
+    /// The same network with the given voltage sources opened (each becomes a current source
+    /// of 0 A between its nodes, so it no longer holds them together) and current sources
+    /// set to 0 A. Refused where another part senses such a source's current.
+    pub fn with_sources_opened(&self, parts: &[PartId]) -> Result<Network, NetworkError> {
+        let mut net = self.clone();
+        for &id in parts {
+            let Some(p) = net.parts.get(id.0) else {
+                continue;
+            };
+            let name = p.name.clone();
+            if let Some(sensor) = net.parts.iter().find(|q| {
+                matches!(q.kind, PartKind::Ccvs { control, .. } | PartKind::Cccs { control, .. } if control == id)
+            }) {
+                return Err(NetworkError::CannotReplace {
+                    part: name,
+                    reason: format!(
+                        "{} senses its current, so it cannot be opened for the port",
+                        sensor.name
+                    ),
+                });
+            }
+            let kind = match p.kind {
+                PartKind::VoltageSource { plus, minus, .. } => PartKind::CurrentSource {
+                    from: plus,
+                    to: minus,
+                    phasor: Complex64::new(0.0, 0.0),
+                },
+                PartKind::CurrentSource { from, to, .. } => PartKind::CurrentSource {
+                    from,
+                    to,
+                    phasor: Complex64::new(0.0, 0.0),
+                },
+                _ => {
+                    return Err(NetworkError::CannotReplace {
+                        part: name,
+                        reason: "it is not a voltage or current source; a port replaces a source"
+                            .into(),
+                    })
+                }
+            };
+            if let Some(p) = net.parts.get_mut(id.0) {
+                p.kind = kind;
+            }
+        }
+        Ok(net)
+    }
+
     /// The same network with some values changed: `(part, param, value)`. The structure (and
     /// so the pattern of the system) stays the same. Fails, naming the part, on a value the
     /// part cannot take (not positive and finite where it must be, a coupling outside (0, 1]).
@@ -619,6 +666,14 @@ pub enum NetworkError {
         what: &'static str,
         /// The value given.
         value: f64,
+    },
+    /// A part a port cannot stand in for.
+    #[error("{part}: {reason}")]
+    CannotReplace {
+        /// Part name.
+        part: String,
+        /// Why not.
+        reason: String,
     },
     /// A tolerance outside [0 %, 100 %).
     #[error("{part}: tolerance {percent}% is outside 0 % … 100 % (a value must stay positive); write e.g. \"1%\"")]
@@ -717,6 +772,7 @@ impl NetworkError {
             | NetworkError::OutOfRange { part, .. }
             | NetworkError::CouplingOutOfRange { part, .. }
             | NetworkError::ToleranceOutOfRange { part, .. }
+            | NetworkError::CannotReplace { part, .. }
             | NetworkError::MissingPart { part, .. }
             | NetworkError::WrongKind { part, .. }
             | NetworkError::BadCoupling { part, .. }

@@ -381,3 +381,40 @@ p2 = { between = ["b", "gnd"] }
         }
     }
 }
+
+#[test]
+fn the_beacon_match_returns_what_the_hand_calculation_says() {
+    // Hand calculation at 27.145 MHz (ω = 1.70557e8 rad/s): the whip is 18 Ω with 30 pF,
+    // 1/(ωC) = 195.44 Ω; the series 1.2865 µH adds ωL = 219.42 Ω, so the branch is
+    // 18 + j23.98 Ω, i.e. 0.020017 − j0.026672 S; the shunt 156 pF adds +j0.026607 S, leaving
+    // 0.020017 − j0.000065 S: Z = 49.956 + j0.162 Ω, |Γ| = 0.00168, return loss 55.5 dB.
+    // The example's port replaces the transmitter's EMF (opened), so its 50 Ω output
+    // resistor dangles and the port sees the match alone.
+    let text = std::fs::read_to_string(
+        std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../sweeps/beacon-match.toml"),
+    )
+    .unwrap();
+    let (np, grid) = nport(&text);
+    let w = 2.0 * std::f64::consts::PI * 27.145e6;
+    let j = Complex64::new(0.0, 1.0);
+    let branch = 18.0 + (j * w * 30e-12).inv() + j * w * 1.2865e-6;
+    let z = (branch.inv() + j * w * 156e-12).inv();
+    let want = (z - 50.0) / (z + 50.0);
+    let got = s_at(&np, 27.145e6).s[0];
+    assert!((got - want).norm() < 1e-12, "{got} vs {want}");
+    let rl = ports::reflection(got).return_loss_db;
+    assert!((rl - 55.50).abs() < 0.01, "{rl}");
+    // The ≥ 10 dB band brackets the design frequency: |Γ| ≤ 0.3162 from below 27.145 MHz to
+    // above it, and the ends of the sweep are far outside it.
+    let pts = np.sweep(&grid).unwrap();
+    let inside: Vec<f64> = pts
+        .iter()
+        .filter(|p| ports::reflection(p.s[0]).return_loss_db >= 10.0)
+        .map(|p| p.freq)
+        .collect();
+    let (lo, hi) = (inside[0], inside[inside.len() - 1]);
+    assert!(
+        lo < 27.145e6 && hi > 27.145e6 && lo > 20e6 && hi < 35e6,
+        "{lo} … {hi}"
+    );
+}

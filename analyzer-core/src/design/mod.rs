@@ -309,7 +309,7 @@ const RESPONSE_KEYS: &[&str] = &[
     "band",
 ];
 const LIMIT_KEYS: &[&str] = &["response", "from", "to", "min_db", "max_db"];
-const PORT_KEYS: &[&str] = &["between", "z0"];
+const PORT_KEYS: &[&str] = &["between", "z0", "replaces"];
 
 fn backticked(list: &[&str]) -> String {
     list.iter()
@@ -678,11 +678,47 @@ fn read_port(
         }
         None => 50.0,
     };
+    let mut replaces = Vec::new();
+    if let Some(v) = e.value("replaces") {
+        let shape = || {
+            pos.err(
+                v.span(),
+                format!("port {name}: replaces takes a list of source names, e.g. [\"Vtx\"]"),
+            )
+        };
+        let Value::Array(a) = v else {
+            return Err(shape());
+        };
+        for item in a.items() {
+            let Some(Scalar::Str(part)) = item.scalar() else {
+                return Err(shape());
+            };
+            let id = net.part_id(&part).ok_or_else(|| {
+                pos.err(
+                    item.span(),
+                    format!("port {name} replaces {part:?}, which is not a part of this design"),
+                )
+            })?;
+            if !matches!(
+                net.part(id).map(|p| &p.kind),
+                Some(PartKind::VoltageSource { .. } | PartKind::CurrentSource { .. })
+            ) {
+                return Err(pos.err(
+                    item.span(),
+                    format!(
+                        "port {name} replaces {part}, which is not a voltage or current source"
+                    ),
+                ));
+            }
+            replaces.push(id);
+        }
+    }
     Ok(crate::ports::Port {
         name: name.to_string(),
         plus,
         minus,
         z0,
+        replaces,
     })
 }
 
