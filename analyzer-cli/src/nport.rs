@@ -47,6 +47,11 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
         .sweep(&grid)
         .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
     let list = nport.ports();
+    let ev = nport
+        .analysis()
+        .evaluator()
+        .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+    let mut ws = ev.workspace();
     let n = list.len();
     let z0: Vec<f64> = list.iter().map(|p| p.z0).collect();
     let mut staging = Staging::default();
@@ -144,16 +149,23 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
             },
             r.mismatch_loss_db
         );
-        // The bands where the return loss is at least the level, edges on the grid.
+        // The bands where the return loss is at least the level, each edge refined on the
+        // live network between the grid points that bracket it.
+        let level = args.return_loss;
         let mut bands = Vec::new();
-        let mut start: Option<f64> = None;
+        let mut start: Option<f64> = rl.first().filter(|p| p.1 >= level).map(|p| p.0);
         for w in rl.windows(2) {
             let (a, b) = (w[0], w[1]);
-            if start.is_none() && a.1 >= args.return_loss {
-                start = Some(a.0);
+            if (a.1 >= level) == (b.1 >= level) {
+                continue;
             }
-            if start.is_some() && b.1 < args.return_loss {
-                bands.push((start.take().unwrap_or(a.0), a.0));
+            let edge = nport
+                .return_loss_crossing(&ev, &mut ws, i, level, a.0, b.0)
+                .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+            if b.1 >= level {
+                start = Some(edge);
+            } else {
+                bands.push((start.take().unwrap_or(a.0), edge));
             }
         }
         if let (Some(s), Some(last)) = (start, rl.last()) {

@@ -370,3 +370,40 @@ pub fn insertion_loss_db(abcd: &[Complex64; 4], zs: f64, zl: f64) -> f64 {
 /// asymmetric 0.1 Ω/100 Ω and 100 Ω/0.1 Ω (source/load), as in the published insertion-loss
 /// method for suppression filters (CISPR 17; from memory).
 pub const EMI_TERMINATIONS: [(f64, f64); 3] = [(50.0, 50.0), (0.1, 100.0), (100.0, 0.1)];
+
+impl NPort {
+    /// Where port `port`'s return loss crosses `level_db` between `lo` and `hi` (Hz), the
+    /// return loss being on opposite sides of the level there: bisection in log frequency on
+    /// the live network to a relative 1e-12 (the return loss of a passive port need not be
+    /// smooth enough for Newton steps near a perfect match).
+    pub fn return_loss_crossing<'a>(
+        &self,
+        ev: &Evaluator<'a>,
+        ws: &mut Workspace<'a>,
+        port: usize,
+        level_db: f64,
+        lo: f64,
+        hi: f64,
+    ) -> Result<f64, AnalysisError> {
+        let n = self.ports.len();
+        let mut g = |f: f64| -> Result<f64, AnalysisError> {
+            let p = self.at(ev, ws, f)?;
+            Ok(reflection(p.s[port * n + port]).return_loss_db - level_db)
+        };
+        let (mut a, mut b) = (lo.ln(), hi.ln());
+        let ga = g(lo)?;
+        for _ in 0..64 {
+            if (b - a).abs() <= 1e-12 {
+                break;
+            }
+            let m = 0.5 * (a + b);
+            let gm = g(m.exp())?;
+            if (gm >= 0.0) == (ga >= 0.0) {
+                a = m;
+            } else {
+                b = m;
+            }
+        }
+        Ok((0.5 * (a + b)).exp())
+    }
+}
