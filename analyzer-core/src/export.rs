@@ -1103,6 +1103,14 @@ pub fn render_lines_svg(input: &LinesPlot<'_>) -> Result<String, PlotError> {
     Ok(svg)
 }
 
+/// A circle of radius `r` about (cx, cy), as 361 points (closed).
+fn circle_points(cx: f64, cy: f64, r: f64) -> impl Iterator<Item = (f64, f64)> {
+    (0..=360).map(move |k| {
+        let t = std::f64::consts::TAU * f64::from(k) / 360.0;
+        (cx + r * t.cos(), cy + r * t.sin())
+    })
+}
+
 /// What a Smith chart shows: one port's reflection coefficient over frequency.
 #[derive(Clone, Debug)]
 pub struct SmithPlot<'a> {
@@ -1119,7 +1127,6 @@ pub struct SmithPlot<'a> {
 /// (labelled), the trace of Γ with the first and last frequency and each decade marked, and
 /// a VSWR circle.
 pub fn render_smith_svg(input: &SmithPlot<'_>) -> Result<String, PlotError> {
-    use std::f64::consts::PI;
     let mut svg = String::new();
     {
         let root = SVGBackend::with_string(&mut svg, (720, 760)).into_drawing_area();
@@ -1128,12 +1135,9 @@ pub fn render_smith_svg(input: &SmithPlot<'_>) -> Result<String, PlotError> {
             .margin(16)
             .build_cartesian_2d(-1.12f64..1.12f64, -1.12f64..1.12f64)
             .map_err(perr)?;
+        // The part of a circle inside the unit circle (the chart's edge).
         let circle = |cx: f64, cy: f64, r: f64| -> Vec<(f64, f64)> {
-            (0..=360)
-                .map(|k| {
-                    let t = 2.0 * PI * f64::from(k) / 360.0;
-                    (cx + r * t.cos(), cy + r * t.sin())
-                })
+            circle_points(cx, cy, r)
                 .filter(|(x, y)| x * x + y * y <= 1.0 + 1e-9)
                 .collect()
         };
@@ -1265,7 +1269,6 @@ pub fn nyquist_radius(rho: f64) -> f64 {
 /// chart), the unit circle, the −1 point, the gain crossover with the phase margin and the
 /// phase crossover with the gain margin marked.
 pub fn render_nyquist_svg(input: &NyquistPlot<'_>) -> Result<String, PlotError> {
-    use std::f64::consts::PI;
     let map = |l: num_complex::Complex64| {
         let r = nyquist_radius(l.norm());
         let a = l.arg();
@@ -1307,10 +1310,7 @@ pub fn render_nyquist_svg(input: &NyquistPlot<'_>) -> Result<String, PlotError> 
             let r = nyquist_radius(ring);
             chart
                 .draw_series(LineSeries::new(
-                    (0..=360).map(|k| {
-                        let t = 2.0 * PI * f64::from(k) / 360.0;
-                        (r * t.cos(), r * t.sin())
-                    }),
+                    circle_points(0.0, 0.0, r),
                     MINOR.stroke_width(1),
                 ))
                 .map_err(perr)?;
@@ -1325,10 +1325,7 @@ pub fn render_nyquist_svg(input: &NyquistPlot<'_>) -> Result<String, PlotError> 
         }
         chart
             .draw_series(LineSeries::new(
-                (0..=360).map(|k| {
-                    let t = 2.0 * PI * f64::from(k) / 360.0;
-                    (t.cos(), t.sin())
-                }),
+                circle_points(0.0, 0.0, 1.0),
                 INK.stroke_width(1),
             ))
             .map_err(perr)?
