@@ -5,6 +5,7 @@
 
 mod nport;
 mod output;
+mod pages;
 mod report;
 mod study;
 mod whatif;
@@ -13,6 +14,10 @@ use analyzer_core::design::{self, Design};
 use analyzer_core::export::{self, CsvStream, Polar};
 use analyzer_core::metrics::{self, MetricOptions, Trace};
 use analyzer_core::response::{Analysis, AnalysisError, ResponseUnit};
+use analyzer_core::review::{
+    self,
+    plots::{Drawn, PlotOptions},
+};
 use analyzer_core::solve::SolverKind;
 use analyzer_core::sweep::{self, Chunk, SweepOptions};
 use analyzer_core::units::{parse_value, Quantity};
@@ -77,13 +82,17 @@ enum Command {
     /// The design swept once per value of a part (--step) or moved to preferred values
     /// (--snap E24): overlaid plots, CSVs per variant, figures side by side.
     Variants(Box<whatif::VariantsArgs>),
+    /// One self-contained HTML page for a design review (review.html), with the CSVs, plots
+    /// and figures JSON beside it: verdict, parts, plots, figures, limits, tolerance study,
+    /// ports, caution and provenance.
+    Review(Box<pages::ReviewArgs>),
     /// The design's `[ports]` as an N-port: S-parameters (CSV and Touchstone), return loss,
     /// VSWR, insertion loss, reciprocity and passivity.
     Ports(Box<nport::PortsArgs>),
 }
 
 #[derive(Args, Debug)]
-struct SweepArgs {
+pub(crate) struct SweepArgs {
     /// The design file (TOML).
     design: PathBuf,
     /// Output directory for RESPONSE.csv and RESPONSE.svg, or `-` for CSV on stdout only
@@ -116,6 +125,14 @@ struct SweepArgs {
     /// Write phase wrapped to (−180°, 180°] instead of unwrapped along the sweep.
     #[arg(long)]
     wrapped: bool,
+    /// Also draw these responses on one plot with a legend (comma-separated names, of one
+    /// kind: all ratios, or all impedances), written as overlay-NAMES.svg.
+    #[arg(long, value_name = "NAMES", value_delimiter = ',')]
+    overlay: Vec<String>,
+    /// Draw impedances and admittances in dB re 1 Ω or 1 S instead of on a log axis in Ω
+    /// or S.
+    #[arg(long)]
+    impedance_db: bool,
     /// Level for the crossings, in dB relative to the reference (default for a ratio
     /// −3.0103, the half-power level; an impedance, admittance or loop gain gets crossings
     /// only when a level is given). A response's own `level_db` in the design wins.
@@ -203,7 +220,8 @@ fn main() -> ExitCode {
         }
     };
     let result = match cli.command {
-        Command::Sweep(args) => run_sweep(&args),
+        Command::Sweep(args) => run_sweep(&args, None),
+        Command::Review(args) => run_sweep(&args.sweep, Some(&args)),
         Command::Check { design } => run_check(&design),
         Command::Spread(args) => study::run_spread(&args),
         Command::Merge(args) => study::run_merge(&args),
@@ -362,8 +380,13 @@ pub(crate) fn set_threads(threads: Option<usize>) -> Result<(), Failure> {
     Ok(())
 }
 
-fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
+fn run_sweep(args: &SweepArgs, review: Option<&pages::ReviewArgs>) -> Result<u8, Failure> {
     set_threads(args.threads)?;
+    if review.is_some() && args.output.as_deref() == Some("-") {
+        return Err(Failure::input(
+            "-o -: a review is a page with files beside it; give a directory (e.g. -o review/)",
+        ));
+    }
     if args.output.as_deref() == Some("-") && args.json.as_deref() == Some("-") {
         return Err(Failure::input(
             "-o - and --json - would both write to stdout; send one of them to a file (e.g. --json figures.json)",
@@ -441,6 +464,8 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
     };
     let caution = d.caution;
     let limits = d.limits.clone();
+    let design_ports = d.ports.clone();
+    let ports_network = (review.is_some() && !design_ports.is_empty()).then(|| d.network.clone());
     let analysis = Analysis::new(d.network, d.responses)
         .map_err(|e| Failure::input(format!("{shown}: {e}")))?
         .with_solver(solver);
@@ -459,7 +484,12 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
                 .design
                 .file_stem()
                 .map_or_else(|| "design".into(), |s| s.to_string_lossy().to_string());
-            PathBuf::from(format!("{stem}-response"))
+            let what = if review.is_some() {
+                "review"
+            } else {
+                "response"
+            };
+            PathBuf::from(format!("{stem}-{what}"))
         }
     };
     let specs = analysis.responses();
@@ -561,9 +591,8 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
             checks.push(r);
         }
     }
-    // Poles and zeros of each response where they were computed: a CSV, and the chart.
+    // Poles and zeros of each response where they were computed: a CSV beside the plots.
     if !to_stdout {
-        let title = &analysis.network().title;
         for (spec, f) in specs.iter().zip(&figures) {
             if f.poles.rows.is_empty() {
                 continue;
@@ -573,14 +602,6 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
             export::write_poles_csv(&mut csv_text, &f.poles.rows)
                 .map_err(|e| Failure::output(format!("{}-poles.csv: {e}", spec.name)))?;
             staging.bytes(&out_dir.join(format!("{stem}-poles.csv")), &csv_text)?;
-            if !args.no_plot {
-                let svg = export::render_pole_zero_svg(
-                    &format!("{title} — {}: poles × and zeros ○", spec.name),
-                    &f.poles.rows,
-                )
-                .map_err(|e| Failure::input(format!("response {}: {e}", spec.name)))?;
-                staging.bytes(&out_dir.join(format!("{stem}-poles.svg")), svg.as_bytes())?;
-            }
         }
     }
     // Noise: each source's density over the sweep, on request.
@@ -597,67 +618,161 @@ fn run_sweep(args: &SweepArgs) -> Result<u8, Failure> {
             }
         }
     }
-    if !to_stdout && !args.no_plot {
+    // The plots of each response (Bode or noise plot first, then its Nyquist chart and its
+    // pole-zero chart), and the overlay, kept for the review page as well as written.
+    let plot_opts = PlotOptions {
+        wrapped: args.wrapped,
+        impedance_db: args.impedance_db,
+    };
+    let mut plots: Vec<Vec<(PathBuf, review::Plot)>> = vec![Vec::new(); nr];
+    let mut overlays: Vec<(PathBuf, review::Plot)> = Vec::new();
+    if !to_stdout && (!args.no_plot || review.is_some()) {
         let title = &analysis.network().title;
         for (i, spec) in specs.iter().enumerate() {
-            let path = out_dir.join(format!("{}.svg", output::safe_file_name(&spec.name)));
-            if ev.noise_plan(i).is_some() {
-                let svg = output::noise_svg(title, &ev, i, &grid, &figures[i])
-                    .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
-                if let Some(svg) = svg {
-                    staging.bytes(&path, svg.as_bytes())?;
-                }
-                continue;
+            let stem = output::safe_file_name(&spec.name);
+            let drawn = [Drawn {
+                spec,
+                trace: &traces[i],
+                figures: &figures[i],
+            }];
+            let main = if ev.noise_plan(i).is_some() {
+                output::noise_svg(title, &ev, i, &grid, &figures[i])
+                    .map_err(|e| Failure::input(format!("{shown}: {e}")))?
+                    .map(|svg| (svg, "noise density and its largest contributors"))
+            } else {
+                output::svg(title, &grid, &drawn, &limits, plot_opts)?
+                    .map(|svg| (svg, "Bode plot: magnitude and phase over frequency, figures marked, limits shaded"))
+            };
+            match main {
+                Some((svg, caption)) => plots[i].push((
+                    out_dir.join(format!("{stem}.svg")),
+                    review::Plot {
+                        caption: caption.into(),
+                        svg,
+                    },
+                )),
+                None if !args.quiet => eprintln!(
+                    "note: no plot of {}: the sweep has no frequency above 0 Hz",
+                    spec.name
+                ),
+                None => {}
             }
             if spec.loop_gain {
-                // The Nyquist chart, from the trace (at most about 4,000 points drawn).
-                let t = &traces[i];
-                let step = (t.db.len() / 4000).max(1);
-                let pts: Vec<(f64, analyzer_core::ports::Complex)> =
-                    (0..t.db.len().min(grid.len()))
-                        .step_by(step)
-                        .map(|k| {
-                            let m = 10f64.powf(t.db[k] / 20.0);
-                            let a = f64::from(t.phase_deg[k]).to_radians();
-                            (grid.at(k), analyzer_core::ports::Complex::from_polar(m, a))
-                        })
-                        .filter(|p| p.0 > 0.0)
-                        .collect();
-                let m = figures[i].margins.as_ref();
-                let plot = export::NyquistPlot {
-                    title: format!("{title} — {}: Nyquist chart", spec.name),
-                    loop_gain: &pts,
-                    phase_margin: m.and_then(|m| m.gain_crossover_hz.zip(m.phase_margin_deg)),
-                    gain_margin: m.and_then(|m| m.phase_crossover_hz.zip(m.gain_margin_db)),
-                };
-                if let Ok(svg) = export::render_nyquist_svg(&plot) {
-                    let path = out_dir.join(format!(
-                        "{}-nyquist.svg",
-                        output::safe_file_name(&spec.name)
+                if let Some(svg) = output::nyquist_svg(title, spec, &grid, &traces[i], &figures[i])
+                {
+                    plots[i].push((
+                        out_dir.join(format!("{stem}-nyquist.svg")),
+                        review::Plot {
+                            caption: "Nyquist chart (radius log-compressed beyond the unit circle)"
+                                .into(),
+                            svg,
+                        },
                     ));
-                    staging.bytes(&path, svg.as_bytes())?;
                 }
             }
-            match output::svg(title, spec, &grid, &traces[i], &figures[i], !args.wrapped)? {
-                Some(svg) => staging.bytes(&path, svg.as_bytes())?,
-                None if !args.quiet => {
-                    eprintln!(
-                        "note: no plot of {}: the sweep has no frequency above 0 Hz",
-                        spec.name
-                    )
-                }
-                None => {}
+            if !figures[i].poles.rows.is_empty() {
+                let svg = export::render_pole_zero_svg(
+                    &format!("{title} — {}: poles × and zeros ○", spec.name),
+                    &figures[i].poles.rows,
+                )
+                .map_err(|e| Failure::input(format!("response {}: {e}", spec.name)))?;
+                plots[i].push((
+                    out_dir.join(format!("{stem}-poles.svg")),
+                    review::Plot {
+                        caption: "poles × and zeros ○ in the s-plane".into(),
+                        svg,
+                    },
+                ));
+            }
+        }
+        if !args.overlay.is_empty() {
+            let mut drawn = Vec::new();
+            for name in &args.overlay {
+                let i = specs.iter().position(|s| &s.name == name).ok_or_else(|| {
+                    let known: Vec<&str> = specs.iter().map(|r| r.name.as_str()).collect();
+                    Failure::input(format!(
+                        "--overlay: no response {name:?} was computed (there are: {})",
+                        known.join(", ")
+                    ))
+                })?;
+                drawn.push(Drawn {
+                    spec: &specs[i],
+                    trace: &traces[i],
+                    figures: &figures[i],
+                });
+            }
+            if let Some(svg) = output::svg(title, &grid, &drawn, &limits, plot_opts)? {
+                let stem: Vec<String> = args
+                    .overlay
+                    .iter()
+                    .map(|n| output::safe_file_name(n))
+                    .collect();
+                overlays.push((
+                    out_dir.join(format!("overlay-{}.svg", stem.join("-"))),
+                    review::Plot {
+                        caption: format!("{} overlaid", args.overlay.join(", ")),
+                        svg,
+                    },
+                ));
+            }
+        }
+        if !args.no_plot {
+            for (path, p) in plots.iter().flatten().chain(&overlays) {
+                staging.bytes(path, p.svg.as_bytes())?;
             }
         }
     }
-    let json_text = args
-        .json
-        .as_ref()
-        .map(|_| report::json(&analysis, &grid, &figures, &checks, caution));
+    let json_text = (args.json.is_some() || review.is_some())
+        .then(|| report::json(&analysis, &grid, &figures, &checks, caution));
     if let (Some(j), Some(text)) = (&args.json, &json_text) {
         if j != "-" {
             staging.bytes(Path::new(j), text.as_bytes())?;
         }
+    }
+    if let (Some(r), Some(text)) = (review, &json_text) {
+        staging.bytes(&out_dir.join("figures.json"), text.as_bytes())?;
+        let opts: Vec<MetricOptions> = specs
+            .iter()
+            .map(|spec| MetricOptions {
+                level_db: spec.level_db.or(args.level),
+                reference: spec.reference.or(cli_reference).unwrap_or_default(),
+            })
+            .collect();
+        let tolerances = review::tolerance_results(
+            &ev, &grid, opts, &limits, &figures, &checks, r.samples, r.seed,
+        )
+        .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
+        let ports = match &ports_network {
+            Some(net) => review::ports_section(net, &design_ports, &grid)
+                .map_err(|e| Failure::input(format!("{shown}: {e}")))?,
+            None => None,
+        };
+        let mut files: Vec<String> = staging
+            .targets()
+            .iter()
+            .filter_map(|p| p.file_name().map(|n| n.to_string_lossy().to_string()))
+            .collect();
+        files.sort();
+        let provenance = pages::provenance(&args.design, files)?;
+        let per_response: Vec<Vec<review::Plot>> = plots
+            .into_iter()
+            .map(|v| v.into_iter().map(|(_, p)| p).collect())
+            .collect();
+        let overlay_plots: Vec<review::Plot> = overlays.into_iter().map(|(_, p)| p).collect();
+        let html = review::page(&review::ReviewInput {
+            analysis: &analysis,
+            grid: &grid,
+            figures: &figures,
+            checks: &checks,
+            limits: &limits,
+            caution,
+            plots: &per_response,
+            overlays: &overlay_plots,
+            ports,
+            tolerances: &tolerances,
+            provenance: &provenance,
+        });
+        staging.bytes(&out_dir.join("review.html"), html.as_bytes())?;
     }
     let written = staging.commit()?;
     if let (Some("-"), Some(text)) = (args.json.as_deref(), &json_text) {

@@ -4,12 +4,13 @@
 //! the previous files intact (or none), never a half-written one.
 
 use crate::Failure;
-use analyzer_core::export::{self, Marker, Panel, PlotInput};
-use analyzer_core::metrics::{Figures, Trace};
+use analyzer_core::export;
+use analyzer_core::metrics::{Figures, Limit, Trace};
 use analyzer_core::noise::{self, NoisePlan};
-use analyzer_core::response::{AnalysisError, Evaluator, ResponseSpec, ResponseUnit};
+use analyzer_core::ports::Complex;
+use analyzer_core::response::{AnalysisError, Evaluator, ResponseSpec};
+use analyzer_core::review::plots::{self, Drawn, PlotOptions};
 use analyzer_core::sweep::Grid;
-use analyzer_core::units::format_eng;
 use std::io::{BufWriter, Write};
 use std::path::{Path, PathBuf};
 use tempfile::NamedTempFile;
@@ -68,6 +69,11 @@ impl Staging {
         self.files
             .get(handle)
             .map_or_else(String::new, |f| f.1.display().to_string())
+    }
+
+    /// The target paths of the files started so far.
+    pub fn targets(&self) -> Vec<PathBuf> {
+        self.files.iter().map(|f| f.1.clone()).collect()
     }
 
     /// A whole file from bytes.
@@ -131,126 +137,47 @@ pub fn safe_file_name(name: &str) -> String {
         .collect()
 }
 
-fn short(f: f64) -> String {
-    format_eng(f, 4, "Hz")
+/// The SVG Bode plot of one response, or several overlaid, with their figures marked and
+/// the limits on them drawn as masks; None when the sweep has no frequency above 0 Hz.
+pub fn svg(
+    title: &str,
+    grid: &Grid,
+    drawn: &[Drawn<'_>],
+    limits: &[Limit],
+    opts: PlotOptions,
+) -> Result<Option<String>, Failure> {
+    plots::bode_svg(title, grid, drawn, limits, opts).map_err(|e| {
+        let names: Vec<&str> = drawn.iter().map(|d| d.spec.name.as_str()).collect();
+        Failure::input(format!("response {}: {e}", names.join(", ")))
+    })
 }
 
-/// The SVG Bode plot of one response, with its figures marked; None when the sweep has no
-/// frequency above 0 Hz to put on a log axis.
-pub fn svg(
+/// The Nyquist chart of a loop gain from its trace (at most about 4,000 points drawn).
+pub fn nyquist_svg(
     title: &str,
     spec: &ResponseSpec,
     grid: &Grid,
-    trace: &Trace,
+    t: &Trace,
     figures: &Figures,
-    unwrap: bool,
-) -> Result<Option<String>, Failure> {
-    let n = grid.len().min(trace.db.len());
-    // 0 Hz (allowed in list and linear sweeps) has no place on a log axis.
-    let Some(first) = (0..n).map(|k| grid.at(k)).find(|f| *f > 0.0) else {
-        return Ok(None);
+) -> Option<String> {
+    let step = (t.db.len() / 4000).max(1);
+    let pts: Vec<(f64, Complex)> = (0..t.db.len().min(grid.len()))
+        .step_by(step)
+        .map(|k| {
+            let m = 10f64.powf(t.db[k] / 20.0);
+            let a = f64::from(t.phase_deg[k]).to_radians();
+            (grid.at(k), Complex::from_polar(m, a))
+        })
+        .filter(|p| p.0 > 0.0)
+        .collect();
+    let m = figures.margins.as_ref();
+    let plot = export::NyquistPlot {
+        title: format!("{title} — {}: Nyquist chart", spec.name),
+        loop_gain: &pts,
+        phase_margin: m.and_then(|m| m.gain_crossover_hz.zip(m.phase_margin_deg)),
+        gain_margin: m.and_then(|m| m.phase_crossover_hz.zip(m.gain_margin_db)),
     };
-    let wrap = |p: f64| {
-        if unwrap {
-            p
-        } else {
-            p - 360.0 * (p / 360.0).round()
-        }
-    };
-    let magnitude_label = match spec.kind.unit() {
-        ResponseUnit::Ratio => "magnitude (dB)".to_string(),
-        ResponseUnit::Ohms => "magnitude (dB re 1 Ω)".to_string(),
-        ResponseUnit::Siemens => "magnitude (dB re 1 S)".to_string(),
-        ResponseUnit::NoiseDensity => "noise density (dB re 1 V/√Hz)".to_string(),
-    };
-    let mut panels = vec![
-        Panel {
-            label: magnitude_label,
-            points: export::decimate(n, |k| grid.at(k), |k| trace.db[k]),
-        },
-        Panel {
-            label: "phase (°)".into(),
-            points: export::decimate(n, |k| grid.at(k), |k| wrap(f64::from(trace.phase_deg[k]))),
-        },
-    ];
-    if let Some(d) = &trace.delay_s {
-        panels.push(Panel {
-            label: "group delay (s)".into(),
-            points: export::decimate(n.min(d.len()), |k| grid.at(k), |k| f64::from(d[k])),
-        });
-    }
-    let f = figures;
-    let mut markers = Vec::new();
-    // Every crossing the table lists, at the level it crosses.
-    for c in &f.crossings {
-        let what = if Some(c.freq_hz) == f.lower_cutoff_hz {
-            "lower cut-off "
-        } else if Some(c.freq_hz) == f.upper_cutoff_hz {
-            "upper cut-off "
-        } else {
-            ""
-        };
-        markers.push(Marker {
-            freq: c.freq_hz,
-            panel: 0,
-            value: c.level_db,
-            label: format!("{what}{}", short(c.freq_hz)),
-        });
-    }
-    for p in &f.peaks {
-        markers.push(Marker {
-            freq: p.freq_hz,
-            panel: 0,
-            value: p.magnitude_db,
-            label: format!("peak {}", short(p.freq_hz)),
-        });
-    }
-    for e in &f.notches {
-        // An exact null has no finite dB value: mark it at the bottom of the trace instead.
-        let bottom = panels[0]
-            .points
-            .iter()
-            .map(|p| p.1)
-            .fold(f64::INFINITY, f64::min);
-        let shown = if e.magnitude_db.is_finite() {
-            e.magnitude_db
-        } else {
-            bottom
-        };
-        markers.push(Marker {
-            freq: e.freq_hz,
-            panel: 0,
-            value: shown,
-            label: format!("notch {}", short(e.freq_hz)),
-        });
-    }
-    for r in &f.resonances {
-        markers.push(Marker {
-            freq: r.freq_hz,
-            panel: 1,
-            value: 0.0,
-            label: format!("{} {}", r.kind, short(r.freq_hz)),
-        });
-    }
-    if let Some(m) = &f.margins {
-        if let (Some(fc), Some(pm)) = (m.gain_crossover_hz, m.phase_margin_deg) {
-            markers.push(Marker {
-                freq: fc,
-                panel: 1,
-                value: wrap(pm - 180.0),
-                label: format!("PM {pm:.1}°"),
-            });
-        }
-    }
-    let input = PlotInput {
-        title: format!("{title} — {}", spec.name),
-        range: (first, grid.bounds().1),
-        panels,
-        markers: &markers,
-    };
-    export::render_svg(&input)
-        .map(Some)
-        .map_err(|e| Failure::input(format!("response {}: {e}", spec.name)))
+    export::render_nyquist_svg(&plot).ok()
 }
 
 /// Each noise source's density at every frequency of the sweep (above 0 Hz), as CSV:

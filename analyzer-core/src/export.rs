@@ -272,41 +272,6 @@ pub fn write_columns_csv<W: Write>(
     w.flush()
 }
 
-/// A labelled point to mark on a plot.
-#[derive(Clone, Debug, PartialEq)]
-pub struct Marker {
-    /// Frequency (Hz).
-    pub freq: f64,
-    /// Which panel: 0 magnitude, 1 phase, 2 group delay.
-    pub panel: usize,
-    /// Value on that panel's axis.
-    pub value: f64,
-    /// Short label.
-    pub label: String,
-}
-
-/// One panel of a plot: its axis label and the points of its trace.
-#[derive(Clone, Debug)]
-pub struct Panel {
-    /// Y-axis label with unit.
-    pub label: String,
-    /// (frequency, value) points, ascending in frequency; see [`decimate`].
-    pub points: Vec<(f64, f64)>,
-}
-
-/// What to draw.
-#[derive(Clone, Debug)]
-pub struct PlotInput<'a> {
-    /// Title line (design title and response name).
-    pub title: String,
-    /// The frequency range of the axis (Hz, > 0).
-    pub range: (f64, f64),
-    /// Panels from top to bottom (magnitude, phase, optionally group delay).
-    pub panels: Vec<Panel>,
-    /// Points to mark; `Marker::panel` indexes `panels`.
-    pub markers: &'a [Marker],
-}
-
 /// Error while drawing (plotters' own errors, as text).
 #[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
 #[error("plot: {0}")]
@@ -368,7 +333,7 @@ pub fn decimate(
 const TRACE_BUCKETS: usize = 1500;
 
 /// "10.0 Hz" → "10 Hz", "-20.0" → "-20": axis labels without idle zeros.
-fn tidy_label(s: String) -> String {
+pub(crate) fn tidy_label(s: String) -> String {
     let (num, unit) = match s.find(' ') {
         Some(i) => (&s[..i], &s[i..]),
         None => (s.as_str(), ""),
@@ -402,115 +367,6 @@ const TRACE: RGBColor = RGBColor(0x0b, 0x6e, 0x4f);
 const MARK: RGBColor = RGBColor(0xb3, 0x3c, 0x1a);
 const DECADE: RGBColor = RGBColor(0xa8, 0xb4, 0xc0);
 const MINOR: RGBColor = RGBColor(0xe2, 0xe7, 0xec);
-
-/// Renders stacked panels (magnitude, phase and optionally group delay) that share a
-/// log-frequency axis with decade and minor grid lines, into an SVG string.
-pub fn render_svg(input: &PlotInput<'_>) -> Result<String, PlotError> {
-    let (mut f0, mut f1) = input.range;
-    if !(f0.is_finite() && f0 > 0.0 && f1.is_finite() && f1 >= f0) || input.panels.is_empty() {
-        return Err(PlotError(
-            "a Bode plot needs frequencies above 0 Hz on its log axis; start the sweep above 0 Hz"
-                .into(),
-        ));
-    }
-    if f1 <= f0 {
-        f0 /= 1.5;
-        f1 *= 1.5;
-    }
-    let panels = input.panels.len();
-    let height = 220 * panels as u32 + 70;
-    let mut svg = String::new();
-    {
-        let root = SVGBackend::with_string(&mut svg, (960, height)).into_drawing_area();
-        root.fill(&WHITE).map_err(perr)?;
-        let (top, body) = root.split_vertically(44);
-        top.draw(&Text::new(
-            input.title.clone(),
-            (16, 14),
-            ("sans-serif", 20).into_font().color(&INK),
-        ))
-        .map_err(perr)?;
-        let areas = body.split_evenly((panels, 1));
-        for (p, (area, panel)) in areas.iter().zip(&input.panels).enumerate() {
-            let ys: Vec<f64> = panel.points.iter().map(|q| q.1).collect();
-            // Magnitude spans at least 1 dB, phase 10°, anything else a tenth of its size.
-            let min_span = match p {
-                0 => 1.0,
-                1 => 10.0,
-                _ => ys.iter().fold(0.0f64, |a, v| a.max(v.abs())) * 0.1 + 1e-15,
-            };
-            let (y0, y1) = padded_range(&ys, min_span);
-            let label = panel.label.clone();
-            let last = p + 1 == panels;
-            let mut chart = ChartBuilder::on(area)
-                .margin_left(12)
-                .margin_right(24)
-                .margin_top(6)
-                .margin_bottom(6)
-                .x_label_area_size(if last { 40 } else { 8 })
-                .y_label_area_size(78)
-                .build_cartesian_2d((f0..f1).log_scale(), y0..y1)
-                .map_err(perr)?;
-            // Minor and decade lines first, so the trace lies on top.
-            let lo_dec = f0.log10().floor() as i32;
-            let hi_dec = f1.log10().ceil() as i32;
-            for d in lo_dec..=hi_dec {
-                for m in 1..=9 {
-                    let f = f64::from(m) * 10f64.powi(d);
-                    if f < f0 || f > f1 {
-                        continue;
-                    }
-                    let color = if m == 1 { DECADE } else { MINOR };
-                    chart
-                        .draw_series(LineSeries::new([(f, y0), (f, y1)], color.stroke_width(1)))
-                        .map_err(perr)?;
-                }
-            }
-            let mut mesh = chart.configure_mesh();
-            mesh.disable_x_mesh()
-                .y_desc(label)
-                .y_labels(7)
-                .max_light_lines(1)
-                .light_line_style(WHITE)
-                .bold_line_style(MINOR)
-                .axis_style(INK)
-                .label_style(("sans-serif", 13).into_font().color(&INK))
-                .y_label_formatter(&|v| tidy_label(format_eng(*v, 3, "")));
-            if last {
-                mesh.x_desc("frequency (Hz)")
-                    .x_label_formatter(&|f| tidy_label(format_eng(*f, 3, "Hz")));
-            } else {
-                mesh.x_label_formatter(&|_| String::new());
-            }
-            mesh.draw().map_err(perr)?;
-            chart
-                .draw_series(LineSeries::new(
-                    panel.points.iter().copied(),
-                    TRACE.stroke_width(2),
-                ))
-                .map_err(perr)?;
-            // Labels are staggered upwards so neighbouring markers stay readable.
-            let shown = input
-                .markers
-                .iter()
-                .filter(|m| m.panel == p && m.freq >= f0 && m.freq <= f1 && m.value.is_finite());
-            for (i, m) in shown.enumerate() {
-                let dy = -16 - 14 * (i as i32 % 3);
-                let mark = EmptyElement::at((m.freq, m.value))
-                    + Circle::new((0, 0), 4, MARK.filled())
-                    + PathElement::new(vec![(0, 0), (6, dy + 8)], MARK.stroke_width(1))
-                    + Text::new(
-                        m.label.clone(),
-                        (7, dy),
-                        ("sans-serif", 12).into_font().color(&MARK),
-                    );
-                chart.draw_series(std::iter::once(mark)).map_err(perr)?;
-            }
-        }
-        root.present().map_err(perr)?;
-    }
-    Ok(svg)
-}
 
 /// Draws the legend of a chart's labelled series in our style.
 fn legend<'b, CT: plotters::coord::CoordTranslate>(

@@ -48,6 +48,7 @@
     deny(clippy::unwrap_used, clippy::expect_used, clippy::panic)
 )]
 
+pub mod bode;
 pub mod corners;
 pub mod design;
 pub mod export;
@@ -62,6 +63,7 @@ pub mod poles;
 pub mod ports;
 pub mod preferred;
 pub mod response;
+pub mod review;
 pub mod sensitivity;
 pub mod solve;
 pub mod spread;
