@@ -10,6 +10,7 @@ use analyzer_core::export::{self, LinesPlot};
 use analyzer_core::metrics::{self, Assessment, Limit, MetricOptions};
 use analyzer_core::preferred::{self, Series};
 use analyzer_core::response::{Analysis, ResponseUnit};
+use analyzer_core::review::plots::{self, PlotOptions};
 use analyzer_core::sensitivity::{self, FigureSensitivity, Value};
 use analyzer_core::spread::Followed;
 use analyzer_core::sweep::Grid;
@@ -586,29 +587,25 @@ pub fn run_variants(args: &VariantsArgs) -> Result<u8, Failure> {
             )?;
         }
         if !args.common.no_plot && spec.kind.unit() != ResponseUnit::NoiseDensity {
-            let series: Vec<(String, Vec<(f64, f64)>)> = list
+            // One Bode plot, the variants overlaid with a legend, the limits as masks.
+            let series: Vec<_> = list
                 .iter()
                 .zip(&assessed)
-                .map(|((label, _), a)| {
-                    (
-                        label.clone(),
-                        freqs
-                            .iter()
-                            .copied()
-                            .zip(a.traces[r].db.iter().copied())
-                            .collect(),
-                    )
-                })
+                .map(|((label, _), a)| plots::series(label, &p.grid, &a.traces[r], false))
                 .collect();
-            let label = match spec.kind.unit() {
-                ResponseUnit::Ratio => "magnitude (dB)".to_string(),
-                u => format!("magnitude (dB re 1 {})", u.symbol()),
-            };
-            if let Ok(svg) = export::render_lines_svg(&LinesPlot {
+            let masks = plots::masks(&p.limits, &spec.name);
+            let (scale, label) = plots::scale(spec.kind.unit(), PlotOptions::default());
+            let lo = freqs.iter().copied().find(|f| *f > 0.0).unwrap_or(0.0);
+            if let Ok(svg) = analyzer_core::bode::render(&analyzer_core::bode::Bode {
                 title: format!("{} — {}: variants", net.title, spec.name),
-                label,
+                range: (lo, p.grid.bounds().1),
                 series: &series,
-                zero_line: false,
+                scale,
+                magnitude_label: label,
+                wrapped: false,
+                marks: &[],
+                masks: &masks,
+                loop_gain: spec.loop_gain,
             }) {
                 staging.bytes(
                     &p.out_dir.join(format!("{stem}-variants.svg")),

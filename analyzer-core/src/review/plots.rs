@@ -204,7 +204,8 @@ pub fn masks(limits: &[Limit], name: &str) -> Vec<Mask> {
         .collect()
 }
 
-fn scale(unit: ResponseUnit, opts: PlotOptions) -> (MagnitudeScale, String) {
+/// How a response of this unit is drawn, and its magnitude axis label.
+pub fn scale(unit: ResponseUnit, opts: PlotOptions) -> (MagnitudeScale, String) {
     match (unit, opts.impedance_db) {
         (ResponseUnit::Ohms, false) => (MagnitudeScale::Log("Ω"), "|Z| (Ω)".into()),
         (ResponseUnit::Siemens, false) => (MagnitudeScale::Log("S"), "|Y| (S)".into()),
