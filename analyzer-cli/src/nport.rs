@@ -69,6 +69,12 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
     for p in list {
         let _ = write!(csv, ",{0}_return_loss_db,{0}_vswr", p.name);
     }
+    // Transmission group delay, −d(arg Sij)/dω, from the exact derivative.
+    for i in 1..=n {
+        for j in (1..=n).filter(|&j| j != i) {
+            let _ = write!(csv, ",s{i}{j}_delay_s");
+        }
+    }
     csv.push('\n');
     for p in &pts {
         let _ = write!(csv, "{}", p.freq);
@@ -78,6 +84,15 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
         for i in 0..n {
             let r = ports::reflection(p.s[i * n + i]);
             let _ = write!(csv, ",{},{}", r.return_loss_db, r.vswr);
+        }
+        for i in 0..n {
+            for j in (0..n).filter(|&j| j != i) {
+                let _ = write!(
+                    csv,
+                    ",{}",
+                    ports::group_delay(p.s[i * n + j], p.ds[i * n + j])
+                );
+            }
         }
         csv.push('\n');
     }
@@ -208,6 +223,24 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
                     hz(lo.0),
                     hi.1,
                     hz(hi.0)
+                );
+            }
+            let delays: Vec<f64> = pts
+                .iter()
+                .map(|q| ports::group_delay(q.s[i * n + j], q.ds[i * n + j]))
+                .collect();
+            if let (Some(first), Some(last), Some(q0), Some(q1)) =
+                (delays.first(), delays.last(), pts.first(), pts.last())
+            {
+                let _ = writeln!(
+                    text,
+                    "  group delay of S{}{}: {} at {} … {} at {}",
+                    i + 1,
+                    j + 1,
+                    format_eng(*first, 4, "s"),
+                    hz(q0.freq),
+                    format_eng(*last, 4, "s"),
+                    hz(q1.freq)
                 );
             }
         }

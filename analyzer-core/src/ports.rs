@@ -366,6 +366,15 @@ pub fn insertion_loss_db(abcd: &[Complex64; 4], zs: f64, zl: f64) -> f64 {
     20.0 * (with.norm() / (zs + zl)).log10()
 }
 
+/// Group delay (s) of one S-parameter from its value and its exact derivative with respect to
+/// ω at one frequency: τ = −d(arg S)/dω = −Im((dS/dω)/S); NaN where S is zero.
+pub fn group_delay(s: Complex64, ds_domega: Complex64) -> f64 {
+    if s.norm() == 0.0 {
+        return f64::NAN;
+    }
+    -(ds_domega / s).im
+}
+
 /// The terminations an EMI filter's insertion loss is judged between: 50 Ω/50 Ω and the
 /// asymmetric 0.1 Ω/100 Ω and 100 Ω/0.1 Ω (source/load), as in the published insertion-loss
 /// method for suppression filters (CISPR 17; from memory).

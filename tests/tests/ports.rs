@@ -418,3 +418,30 @@ fn the_beacon_match_returns_what_the_hand_calculation_says() {
         "{lo} … {hi}"
     );
 }
+
+#[test]
+fn s21_group_delay_of_a_series_inductor_is_the_closed_form() {
+    // A series L between two z0 ports: S21 = 2·z0/(2·z0 + jωL), so
+    // arg S21 = −atan(ωL/(2·z0)) and τ = (L/(2·z0))/(1 + (ωL/(2·z0))²) (closed form).
+    let (l, z0) = (10e-6f64, 50.0f64);
+    let (np, _) = nport(&resistive(
+        &format!(r#"L = {{ inductor = "{l}", between = ["a", "b"] }}"#),
+        &format!(
+            "p1 = {{ between = [\"a\", \"gnd\"], z0 = \"{z0}\" }}\np2 = {{ between = [\"b\", \"gnd\"], z0 = \"{z0}\" }}"
+        ),
+    ));
+    for f in [1e3, 1e5, 795.77e3, 1e7] {
+        let p = s_at(&np, f);
+        let x = 2.0 * std::f64::consts::PI * f * l / (2.0 * z0);
+        let want = (l / (2.0 * z0)) / (1.0 + x * x);
+        let got = ports::group_delay(p.s[2], p.ds[2]);
+        assert!(rel(got, want) < 1e-10, "{f}: {got} vs {want}");
+    }
+    // A resistive two-port has no delay.
+    let (np, _) = nport(&resistive(
+        r#"R = { resistor = "100", between = ["a", "b"] }"#,
+        "p1 = { between = [\"a\", \"gnd\"] }\np2 = { between = [\"b\", \"gnd\"] }",
+    ));
+    let p = s_at(&np, 5e3);
+    assert!(ports::group_delay(p.s[2], p.ds[2]).abs() < 1e-18);
+}
