@@ -465,6 +465,7 @@ fn run_sweep(args: &SweepArgs, review: Option<&pages::ReviewArgs>) -> Result<u8,
     let caution = d.caution;
     let limits = d.limits.clone();
     let design_ports = d.ports.clone();
+    let port_limits = d.port_limits.clone();
     let ports_network = (review.is_some() && !design_ports.is_empty()).then(|| d.network.clone());
     let analysis = Analysis::new(d.network, d.responses)
         .map_err(|e| Failure::input(format!("{shown}: {e}")))?
@@ -729,6 +730,7 @@ fn run_sweep(args: &SweepArgs, review: Option<&pages::ReviewArgs>) -> Result<u8,
             staging.bytes(Path::new(j), text.as_bytes())?;
         }
     }
+    let mut port_failed: Vec<String> = Vec::new();
     if let (Some(r), Some(text)) = (review, &json_text) {
         staging.bytes(&out_dir.join("figures.json"), text.as_bytes())?;
         let opts: Vec<MetricOptions> = specs
@@ -743,10 +745,18 @@ fn run_sweep(args: &SweepArgs, review: Option<&pages::ReviewArgs>) -> Result<u8,
         )
         .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
         let ports = match &ports_network {
-            Some(net) => review::ports_section(net, &design_ports, &grid)
+            Some(net) => review::ports_section(net, &design_ports, &port_limits, &grid)
                 .map_err(|e| Failure::input(format!("{shown}: {e}")))?,
             None => None,
         };
+        if let Some(p) = &ports {
+            port_failed.extend(
+                p.limits
+                    .iter()
+                    .filter(|c| !c.pass)
+                    .map(|c| c.limit.name.clone()),
+            );
+        }
         let mut files: Vec<String> = staging
             .targets()
             .iter()
@@ -804,6 +814,7 @@ fn run_sweep(args: &SweepArgs, review: Option<&pages::ReviewArgs>) -> Result<u8,
         .iter()
         .filter(|c| !c.pass)
         .map(|c| c.limit.name.as_str())
+        .chain(port_failed.iter().map(String::as_str))
         .collect();
     if !failed.is_empty() {
         eprintln!("check failed: {}", failed.join(", "));

@@ -109,7 +109,13 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
                     format_eng(p.z0, 4, "Ω")
                 ),
                 gamma: &gamma,
-                vswr_circle: args.vswr,
+                // The VSWR asked for, or that of a limit on this port.
+                vswr_circle: args.vswr.or_else(|| {
+                    d.port_limits.iter().find(|l| l.port == p.name).map(|l| {
+                        l.max_vswr
+                            .unwrap_or_else(|| vswr_of_return_loss(l.min_return_loss_db))
+                    })
+                }),
             })
             .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
             staging.bytes(
@@ -337,6 +343,38 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
             }
         }
     }
+    // Limits on the ports' match.
+    let mut failed = Vec::new();
+    if !d.port_limits.is_empty() {
+        let _ = writeln!(text, "\nlimits on the ports' match:");
+    }
+    for l in &d.port_limits {
+        let Some(r) = nport
+            .check_limit(&ev, &mut ws, &pts, l)
+            .map_err(|e| Failure::input(format!("{shown}: limit {}: {e}", l.name)))?
+        else {
+            continue;
+        };
+        let bound = match l.max_vswr {
+            Some(v) => format!("VSWR ≤ {v} (return loss ≥ {:.2} dB)", l.min_return_loss_db),
+            None => format!("return loss ≥ {} dB", l.min_return_loss_db),
+        };
+        let _ = writeln!(
+            text,
+            "  {} (port {}, {} … {}, {bound}): {}, worst return loss {:.2} dB at {} (margin {:+.2} dB)",
+            l.name,
+            l.port,
+            hz(l.from),
+            hz(l.to),
+            if r.pass { "pass" } else { "FAIL" },
+            r.worst_return_loss_db,
+            hz(r.worst_at_hz),
+            r.worst_margin_db
+        );
+        if !r.pass {
+            failed.push(l.name.clone());
+        }
+    }
     let written = staging.commit()?;
     if !c.quiet {
         print!("{text}");
@@ -346,5 +384,15 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
         let files: Vec<String> = written.iter().map(|p| p.display().to_string()).collect();
         println!("wrote {}", files.join(", "));
     }
+    if !failed.is_empty() {
+        eprintln!("check failed: {}", failed.join(", "));
+        return Ok(crate::EXIT_CHECK_FAILED);
+    }
     Ok(0)
+}
+
+/// VSWR of a return loss (dB): (1 + |Γ|)/(1 − |Γ|) with |Γ| = 10^(−RL/20).
+fn vswr_of_return_loss(rl_db: f64) -> f64 {
+    let g = 10f64.powf(-rl_db / 20.0);
+    (1.0 + g) / (1.0 - g)
 }

@@ -416,3 +416,123 @@ impl NPort {
         Ok((0.5 * (a + b)).exp())
     }
 }
+
+/// A limit on a port's match: its return loss at least `min_return_loss_db` over a band
+/// (given in the design as `min_return_loss_db`, or as `max_vswr`, converted by
+/// RL = −20·log10((S − 1)/(S + 1))).
+#[derive(Clone, Debug, PartialEq, serde::Serialize)]
+pub struct PortLimit {
+    /// The limit's name.
+    pub name: String,
+    /// The port's name.
+    pub port: String,
+    /// Frequency range (Hz).
+    pub from: f64,
+    /// Frequency range (Hz).
+    pub to: f64,
+    /// Least return loss allowed (dB, positive).
+    pub min_return_loss_db: f64,
+    /// The VSWR it was given as, where it was.
+    pub max_vswr: Option<f64>,
+}
+
+/// Return loss (dB) of a VSWR: −20·log10((S − 1)/(S + 1)).
+pub fn return_loss_of_vswr(vswr: f64) -> f64 {
+    -20.0 * ((vswr - 1.0) / (vswr + 1.0)).log10()
+}
+
+/// The outcome of a [`PortLimit`].
+#[derive(Clone, Debug, PartialEq, serde::Serialize)]
+pub struct PortLimitResult {
+    /// The limit.
+    pub limit: PortLimit,
+    /// Whether the return loss stays at or above the limit over the whole range.
+    pub pass: bool,
+    /// Least return loss over the range minus the limit (dB; negative when failing).
+    pub worst_margin_db: f64,
+    /// Where the least return loss is (Hz).
+    pub worst_at_hz: f64,
+    /// The least return loss (dB).
+    pub worst_return_loss_db: f64,
+}
+
+impl NPort {
+    /// Checks `limit` on the live network: at the range's ends and every point of `pts`
+    /// (a sweep of this N-port) inside it, the least return loss then refined by golden-
+    /// section search in log frequency between the neighbours of the worst point.
+    pub fn check_limit<'a>(
+        &self,
+        ev: &Evaluator<'a>,
+        ws: &mut Workspace<'a>,
+        pts: &[SPoint],
+        limit: &PortLimit,
+    ) -> Result<Option<PortLimitResult>, AnalysisError> {
+        let Some(i) = self.ports.iter().position(|p| p.name == limit.port) else {
+            return Ok(None);
+        };
+        let n = self.ports.len();
+        let mut rl = |f: f64| -> Result<f64, AnalysisError> {
+            let p = self.at(ev, ws, f)?;
+            Ok(reflection(p.s[i * n + i]).return_loss_db)
+        };
+        let mut cand: Vec<f64> = pts
+            .iter()
+            .map(|p| p.freq)
+            .filter(|f| *f > limit.from && *f < limit.to)
+            .collect();
+        cand.insert(0, limit.from);
+        if limit.to > limit.from {
+            cand.push(limit.to);
+        }
+        let mut vals = Vec::with_capacity(cand.len());
+        for &f in &cand {
+            vals.push(rl(f)?);
+        }
+        let Some(k) = (0..vals.len()).min_by(|&a, &b| vals[a].total_cmp(&vals[b])) else {
+            return Ok(None);
+        };
+        let (mut best_f, mut best) = (cand[k], vals[k]);
+        if k > 0 && k + 1 < cand.len() && cand[k - 1] > 0.0 {
+            // Golden-section search for the minimum between the neighbours.
+            let (mut a, mut b) = (cand[k - 1].ln(), cand[k + 1].ln());
+            let g = 0.5 * (5f64.sqrt() - 1.0);
+            let (mut c, mut d) = (b - g * (b - a), a + g * (b - a));
+            let (mut fc, mut fd) = (rl(c.exp())?, rl(d.exp())?);
+            for _ in 0..80 {
+                if (b - a).abs() < 1e-12 {
+                    break;
+                }
+                if fc < fd {
+                    b = d;
+                    d = c;
+                    fd = fc;
+                    c = b - g * (b - a);
+                    fc = rl(c.exp())?;
+                } else {
+                    a = c;
+                    c = d;
+                    fc = fd;
+                    d = a + g * (b - a);
+                    fd = rl(d.exp())?;
+                }
+            }
+            let (f, v) = if fc < fd {
+                (c.exp(), fc)
+            } else {
+                (d.exp(), fd)
+            };
+            if v < best {
+                best = v;
+                best_f = f;
+            }
+        }
+        let margin = best - limit.min_return_loss_db;
+        Ok(Some(PortLimitResult {
+            limit: limit.clone(),
+            pass: margin >= 0.0,
+            worst_margin_db: margin,
+            worst_at_hz: best_f,
+            worst_return_loss_db: best,
+        }))
+    }
+}

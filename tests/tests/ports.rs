@@ -445,3 +445,47 @@ fn s21_group_delay_of_a_series_inductor_is_the_closed_form() {
     let p = s_at(&np, 5e3);
     assert!(ports::group_delay(p.s[2], p.ds[2]).abs() < 1e-18);
 }
+
+#[test]
+fn a_return_loss_limit_on_a_resistive_load_has_the_closed_form_margin() {
+    // 100 Ω on a 50 Ω port: Γ = (100 − 50)/(100 + 50) = 1/3, RL = 20·log10(3) = 9.5424 dB at
+    // every frequency (closed form). Against 10 dB the margin is −0.4576 dB; against
+    // VSWR 2.5 (RL 20·log10(3.5/1.5) = 7.3595 dB) it is +2.1829 dB.
+    let text = resistive(
+        r#"R = { resistor = "100", between = ["a", "gnd"] }"#,
+        "p1 = { between = [\"a\", \"gnd\"] }",
+    ) + "[limits]\nrl = { port = \"p1\", from = \"2 kHz\", to = \"8 kHz\", min_return_loss_db = 10 }\nsw = { port = \"p1\", from = \"2 kHz\", to = \"8 kHz\", max_vswr = 2.5 }\n";
+    let d = design::parse(&text).unwrap();
+    assert_eq!(d.port_limits.len(), 2);
+    let grid = d.sweep.grid().unwrap();
+    let np = NPort::new(&d.network, d.ports.clone()).unwrap();
+    let pts = np.sweep(&grid).unwrap();
+    let ev = np.analysis().evaluator().unwrap();
+    let mut ws = ev.workspace();
+    let rl = 20.0 * 3f64.log10();
+    let r = np
+        .check_limit(&ev, &mut ws, &pts, &d.port_limits[0])
+        .unwrap()
+        .unwrap();
+    assert!(!r.pass);
+    assert!((r.worst_margin_db - (rl - 10.0)).abs() < 1e-9, "{r:?}");
+    let r = np
+        .check_limit(&ev, &mut ws, &pts, &d.port_limits[1])
+        .unwrap()
+        .unwrap();
+    assert!(r.pass);
+    assert!(
+        (r.worst_margin_db - (rl - 20.0 * (3.5f64 / 1.5).log10())).abs() < 1e-9,
+        "{r:?}"
+    );
+    // A limit on a port the design does not define is refused, naming the ports it has.
+    let bad = text.replace(
+        "port = \"p1\", from = \"2 kHz\", to = \"8 kHz\", min",
+        "port = \"p9\", from = \"2 kHz\", to = \"8 kHz\", min",
+    );
+    let e = design::parse(&bad).unwrap_err().to_string();
+    assert!(
+        e.contains("checks port \"p9\"") && e.contains("(it has: p1)"),
+        "{e}"
+    );
+}

@@ -135,6 +135,8 @@ pub struct Design {
     pub responses: Vec<ResponseSpec>,
     /// Magnitude limits to check, in file order.
     pub limits: Vec<crate::metrics::Limit>,
+    /// Limits on the return loss (or VSWR) of ports, in file order.
+    pub port_limits: Vec<crate::ports::PortLimit>,
     /// Ports for the N-port analysis, in file order.
     pub ports: Vec<crate::ports::Port>,
     /// Whether the design mentions a mains, high-voltage or medical use in its title or
@@ -310,6 +312,7 @@ const RESPONSE_KEYS: &[&str] = &[
 ];
 const LIMIT_KEYS: &[&str] = &["response", "from", "to", "min_db", "max_db"];
 const PORT_KEYS: &[&str] = &["between", "z0", "replaces"];
+const PORT_LIMIT_KEYS: &[&str] = &["port", "from", "to", "min_return_loss_db", "max_vswr"];
 
 fn backticked(list: &[&str]) -> String {
     list.iter()
@@ -589,18 +592,23 @@ pub fn parse(text: &str) -> Result<Design, DesignError> {
             "the design has no [responses]; name at least one, e.g. gain = { ratio = [\"out\", \"in\"] }",
         ));
     }
-    let mut limits = Vec::new();
-    if let Some(ls) = top.value("limits") {
-        for (key, value) in table(&pos, ls, || "[limits]".into())?.entries() {
-            let entry = table(&pos, value, || format!("limit {}", key.text))?;
-            limits.push(read_limit(&pos, &responses, &key.text, entry)?);
-        }
-    }
     let mut ports = Vec::new();
     if let Some(ps) = top.value("ports") {
         for (key, value) in table(&pos, ps, || "[ports]".into())?.entries() {
             let entry = table(&pos, value, || format!("port {}", key.text))?;
             ports.push(read_port(&pos, &network, &key.text, entry)?);
+        }
+    }
+    let mut limits = Vec::new();
+    let mut port_limits = Vec::new();
+    if let Some(ls) = top.value("limits") {
+        for (key, value) in table(&pos, ls, || "[limits]".into())?.entries() {
+            let entry = table(&pos, value, || format!("limit {}", key.text))?;
+            if entry.entries().any(|(k, _)| k.text == "port") {
+                port_limits.push(read_port_limit(&pos, &ports, &key.text, entry)?);
+            } else {
+                limits.push(read_limit(&pos, &responses, &key.text, entry)?);
+            }
         }
     }
     let lower = title.to_lowercase();
@@ -623,6 +631,7 @@ pub fn parse(text: &str) -> Result<Design, DesignError> {
         responses,
         limits,
         ports,
+        port_limits,
         caution,
         warnings,
     })
@@ -1402,6 +1411,72 @@ fn read_limit(
         to,
         min_db,
         max_db,
+    })
+}
+
+fn read_port_limit(
+    pos: &Positions<'_>,
+    ports: &[crate::ports::Port],
+    name: &str,
+    entry: Table<'_, '_>,
+) -> Result<crate::ports::PortLimit, DesignError> {
+    let span = entry.span();
+    let e = Fields::of(entry, PORT_LIMIT_KEYS, pos, unknown_key(PORT_LIMIT_KEYS))?;
+    let need = |key: &str| {
+        e.value(key)
+            .ok_or_else(|| pos.err(span.clone(), format!("limit {name} needs {key}")))
+    };
+    let pv = need("port")?;
+    let port = string(pos, pv, &format!("limit {name}: port"))?;
+    if !ports.iter().any(|p| p.name == port) {
+        let known: Vec<&str> = ports.iter().map(|p| p.name.as_str()).collect();
+        return Err(pos.err(
+            pv.span(),
+            format!(
+                "limit {name} checks port {port:?}, which the design's [ports] does not define (it has: {})",
+                if known.is_empty() { "none".to_string() } else { known.join(", ") }
+            ),
+        ));
+    }
+    let what = format!("limit {name}");
+    let from = number(pos, need("from")?, Quantity::Frequency, &what)?;
+    let tov = need("to")?;
+    let to = number(pos, tov, Quantity::Frequency, &what)?;
+    if !(from > 0.0 && to >= from) {
+        return Err(pos.err(tov.span(), format!("limit {name}: the range must run upwards from above 0 Hz, got {from} Hz to {to} Hz")));
+    }
+    let (min_rl, max_vswr) = match (e.value("min_return_loss_db"), e.value("max_vswr")) {
+        (Some(v), None) => {
+            let rl = number(pos, v, Quantity::Ratio, &what)?;
+            if !(rl > 0.0 && rl.is_finite()) {
+                return Err(pos.err(v.span(), format!("limit {name}: min_return_loss_db is a positive number of dB (return loss as a positive number), e.g. 14")));
+            }
+            (rl, None)
+        }
+        (None, Some(v)) => {
+            let s = number(pos, v, Quantity::Ratio, &what)?;
+            if !(s > 1.0 && s.is_finite()) {
+                return Err(pos.err(
+                    v.span(),
+                    format!("limit {name}: max_vswr must be above 1, e.g. 2"),
+                ));
+            }
+            (crate::ports::return_loss_of_vswr(s), Some(s))
+        }
+        _ => {
+            return Err(pos.err(
+                span,
+                format!("limit {name} on a port needs one of min_return_loss_db or max_vswr"),
+            ))
+        }
+    };
+    Ok(crate::ports::PortLimit {
+        name: name.to_string(),
+        port,
+        from,
+        to,
+        min_return_loss_db: min_rl,
+        max_vswr,
     })
 }
 

@@ -450,19 +450,22 @@ fn parts_rows(out: &mut String, net: &Network, range: std::ops::Range<usize>) {
     out.push_str("</table>\n");
 }
 
-fn verdict(checks: &[LimitResult]) -> (&'static str, String) {
-    if checks.is_empty() {
+/// The one-line verdict over the magnitude limits and the limits on the ports' match.
+fn verdict(checks: &[LimitResult], ports: &PortsSection) -> (&'static str, String) {
+    let port_checks = ports.as_ref().map_or(&[][..], |p| p.limits.as_slice());
+    let all: Vec<(&str, bool)> = checks
+        .iter()
+        .map(|c| (c.limit.name.as_str(), c.pass))
+        .chain(port_checks.iter().map(|c| (c.limit.name.as_str(), c.pass)))
+        .collect();
+    if all.is_empty() {
         return ("none", "No limits given: nothing checked.".into());
     }
-    let failed: Vec<&str> = checks
-        .iter()
-        .filter(|c| !c.pass)
-        .map(|c| c.limit.name.as_str())
-        .collect();
+    let failed: Vec<&str> = all.iter().filter(|c| !c.1).map(|c| c.0).collect();
     if failed.is_empty() {
         (
             "pass",
-            format!("Every limit passed ({} of {}).", checks.len(), checks.len()),
+            format!("Every limit passed ({} of {}).", all.len(), all.len()),
         )
     } else {
         (
@@ -470,7 +473,7 @@ fn verdict(checks: &[LimitResult]) -> (&'static str, String) {
             format!(
                 "{} of {} limits failed: {}.",
                 failed.len(),
-                checks.len(),
+                all.len(),
                 failed.join(", ")
             ),
         )
@@ -582,7 +585,7 @@ pub fn page(input: &ReviewInput<'_>) -> String {
         escape(&net.title)
     );
     // Sheet 1: title, verdict, caution, the design at a glance.
-    let (class, text) = verdict(input.checks);
+    let (class, text) = verdict(input.checks, &input.ports);
     out.push_str("<section class=\"sheet\" id=\"summary\">\n");
     let _ = writeln!(out, "<h1>{}</h1>", escape(&net.title));
     let _ = writeln!(
@@ -683,14 +686,31 @@ pub fn page(input: &ReviewInput<'_>) -> String {
         figure(&mut out, p, "");
         out.push_str("</section>\n");
     }
-    if let Some((rows, plots)) = &input.ports {
+    if let Some(ports) = &input.ports {
         out.push_str("<section class=\"sheet\" id=\"ports\">\n<h2>Ports</h2>\n<table>\n");
-        for (k, v) in rows {
+        for (k, v) in &ports.rows {
             row(&mut out, k, v, None);
+        }
+        for r in &ports.limits {
+            row(
+                &mut out,
+                &format!("limit {} (port {})", r.limit.name, r.limit.port),
+                &format!(
+                    "{}: return loss ≥ {:.2} dB over {} … {}; worst {:.2} dB at {} (margin {})",
+                    if r.pass { "pass" } else { "FAIL" },
+                    r.limit.min_return_loss_db,
+                    hz(r.limit.from),
+                    hz(r.limit.to),
+                    r.worst_return_loss_db,
+                    hz(r.worst_at_hz),
+                    db(r.worst_margin_db)
+                ),
+                None,
+            );
         }
         out.push_str("</table>\n");
         // One chart on the ports sheet, each further one on a sheet of its own.
-        for (k, p) in plots.iter().enumerate() {
+        for (k, p) in ports.plots.iter().enumerate() {
             if k > 0 {
                 out.push_str("</section>\n<section class=\"sheet\">\n<h2>Ports (continued)</h2>\n");
             }
@@ -701,7 +721,12 @@ pub fn page(input: &ReviewInput<'_>) -> String {
     // Limits.
     out.push_str("<section class=\"sheet\" id=\"limits\">\n<h2>Limits</h2>\n");
     if input.limits.is_empty() {
-        out.push_str("<p class=\"note\">The design gives no limits.</p>\n");
+        let has_port_limits = input.ports.as_ref().is_some_and(|p| !p.limits.is_empty());
+        out.push_str(if has_port_limits {
+            "<p class=\"note\">No limits on the responses; the limits on the ports' match are in the Ports section.</p>\n"
+        } else {
+            "<p class=\"note\">The design gives no limits.</p>\n"
+        });
     } else {
         out.push_str("<table class=\"limits\"><tr><th>limit</th><th>response</th><th>range</th><th>bound</th><th>result</th><th>worst margin</th><th>at</th></tr>\n");
         for l in input.limits {
@@ -871,14 +896,26 @@ pub fn tolerance_results(
     })))
 }
 
-/// The ports part of a review: per port its worst return loss and a Smith chart, and the
-/// reciprocity and passivity figures; None when the design has no ports.
-pub type PortsSection = Option<(Vec<(String, String)>, Vec<Plot>)>;
+/// The ports part of a review: per port its worst return loss and a Smith chart, the
+/// reciprocity and passivity figures, and the limits on the ports' match.
+#[derive(Clone, Debug, Default)]
+pub struct Ports {
+    /// (label, text) rows.
+    pub rows: Vec<(String, String)>,
+    /// Smith charts.
+    pub plots: Vec<Plot>,
+    /// Each port limit's outcome.
+    pub limits: Vec<crate::ports::PortLimitResult>,
+}
+
+/// [`Ports`], or None when the design has no ports.
+pub type PortsSection = Option<Ports>;
 
 /// Computes [`PortsSection`] for `ports` of `net` over `grid`.
 pub fn ports_section(
     net: &Network,
     ports: &[crate::ports::Port],
+    port_limits: &[crate::ports::PortLimit],
     grid: &Grid,
 ) -> Result<PortsSection, ReviewError> {
     use crate::ports::{self as p, NPort};
@@ -956,5 +993,17 @@ pub fn ports_section(
             }
         ),
     ));
-    Ok(Some((rows, plots)))
+    let ev = nport.analysis().evaluator()?;
+    let mut ws = ev.workspace();
+    let mut limits = Vec::new();
+    for l in port_limits {
+        if let Some(r) = nport.check_limit(&ev, &mut ws, &pts, l)? {
+            limits.push(r);
+        }
+    }
+    Ok(Some(Ports {
+        rows,
+        plots,
+        limits,
+    }))
 }
