@@ -85,6 +85,50 @@ def roots():
                     f"(normalised to 1 s of group delay at DC), scipy {ver}")
 
 
+def two_port():
+    """A lossy two-port solved by nodal analysis in scipy.linalg, independently of the
+    project: ports at nodes a (z0 50 Ω) and b (z0 75 Ω) to ground; L1 = 2.2 µH from a to m,
+    R1 = 4.7 Ω from m to x, C1 = 1 nF from x to ground, L2 = 3.3 µH from m to b,
+    R2 = 330 Ω from b to ground. Y-parameters by eliminating the inner nodes m and x from the
+    nodal admittance matrix (scipy.linalg.solve), Z = Y⁻¹, S by Kurokawa's power waves with
+    real references, S = F·(Z − R)·(Z + R)⁻¹·F⁻¹ with F = diag(1/(2√z0)), R = diag(z0), and
+    ABCD from Z (A = Z11/Z21, B = det Z/Z21, C = 1/Z21, D = Z22/Z21)."""
+    from scipy import linalg
+    l1, r1, c1, l2, r2 = 2.2e-6, 4.7, 1e-9, 3.3e-6, 330.0
+    z0 = np.array([50.0, 75.0])
+    rows = []
+    for f in [1e5, 1e6, 3.3e6, 1e7, 4.7e7]:
+        w = 2 * np.pi * f
+        y1, y2, yr, yc, yr2 = 1 / (1j * w * l1), 1 / (1j * w * l2), 1 / r1, 1j * w * c1, 1 / r2
+        # Node order: a, b (ports), m, x (inner).
+        Y = np.array([
+            [y1, 0, -y1, 0],
+            [0, y2 + yr2, -y2, 0],
+            [-y1, -y2, y1 + y2 + yr, -yr],
+            [0, 0, -yr, yr + yc],
+        ], dtype=complex)
+        ypp, ypi, yip, yii = Y[:2, :2], Y[:2, 2:], Y[2:, :2], Y[2:, 2:]
+        yparam = ypp - ypi @ linalg.solve(yii, yip)
+        z = linalg.inv(yparam)
+        fm = np.diag(1 / (2 * np.sqrt(z0)))
+        rm = np.diag(z0)
+        sm = fm @ (z - rm) @ linalg.inv(z + rm) @ linalg.inv(fm)
+        abcd = np.array([z[0, 0] / z[1, 0], linalg.det(z) / z[1, 0], 1 / z[1, 0], z[1, 1] / z[1, 0]])
+        row = [f]
+        for m in (sm.flatten(), z.flatten(), yparam.flatten(), abcd):
+            for v in m:
+                row += [v.real, v.imag]
+        rows.append(row)
+    header = ["frequency_hz"]
+    for name in ("s", "z", "y", "abcd"):
+        for k in (["11", "12", "21", "22"] if name != "abcd" else ["a", "b", "c", "d"]):
+            header += [f"{name}{k}_re", f"{name}{k}_im"]
+    write("two_port_lossy_tee.csv", header, rows,
+          "scipy.linalg nodal analysis of a lossy two-port (see two_port() in make_fixtures.py): S (power waves, z0 50/75), Z, Y, ABCD")
+
+
 if __name__ == "__main__":
     roots()
     main()
+    two_port()
+

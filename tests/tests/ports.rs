@@ -489,3 +489,49 @@ fn a_return_loss_limit_on_a_resistive_load_has_the_closed_form_margin() {
         "{e}"
     );
 }
+
+#[test]
+fn s_z_y_and_abcd_equal_scipy_nodal_analysis_of_a_lossy_two_port() {
+    // Fixture: tests/reference/make_fixtures.py two_port(), the same network solved by nodal
+    // analysis in scipy.linalg, its S from Kurokawa's power-wave formula with z0 50/75 Ω.
+    let text = r#"
+[sweep]
+from = "100 kHz"
+to = "47 MHz"
+[parts]
+L1 = { inductor = "2.2u", between = ["a", "m"] }
+R1 = { resistor = "4.7", between = ["m", "x"] }
+C1 = { capacitor = "1n", between = ["x", "gnd"] }
+L2 = { inductor = "3.3u", between = ["m", "b"] }
+R2 = { resistor = "330", between = ["b", "gnd"] }
+[responses]
+z = { impedance = ["a", "gnd"] }
+[ports]
+p1 = { between = ["a", "gnd"], z0 = "50" }
+p2 = { between = ["b", "gnd"], z0 = "75" }
+"#;
+    let (np, _) = nport(text);
+    let z0 = [50.0, 75.0];
+    let rows = reference_suite::fixture("two_port_lossy_tee.csv");
+    assert_eq!(rows.len(), 5);
+    for row in rows {
+        let f = row[0];
+        let c = |k: usize| Complex64::new(row[1 + 2 * k], row[2 + 2 * k]);
+        let s = s_at(&np, f).s;
+        let z = ports::z_from_s(&s, &z0).expect("Z exists");
+        let y = ports::y_from_z(&z).expect("Y exists");
+        let abcd = ports::abcd_from_z(&z).expect("ABCD exists");
+        let close = |got: Complex64, want: Complex64, what: &str| {
+            assert!(
+                (got - want).norm() <= 1e-9 * want.norm().max(1e-3),
+                "{what} at {f} Hz: {got} vs scipy {want}"
+            );
+        };
+        for k in 0..4 {
+            close(s[k], c(k), "S");
+            close(z[k], c(4 + k), "Z");
+            close(y[k], c(8 + k), "Y");
+            close(abcd[k], c(12 + k), "ABCD");
+        }
+    }
+}
