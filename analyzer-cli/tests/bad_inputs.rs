@@ -62,7 +62,7 @@ const DESIGNS: &[(&str, &str)] = &[
     ("numeric_ratio_without_source", ":11:8: response gain is a ratio, which needs an independent source in [parts]; add one"),
     ("schema_limit_unknown_response", ":13:21: limit pass checks response \"gian\", which the design does not define (it has: gain)"),
     ("schema_limit_no_bound", ":13:8: limit pass needs min_db, max_db or both"),
-    ("port_replaces_resistor", ":13:46: port p1 replaces R1, which is not a voltage or current source"),
+    ("port_replaces_resistor", ":13:46: port p1 replaces R1, a resistor that is not across the port's nodes; a port replaces a source, or the termination resistor across its own nodes"),
     ("port_unknown_node", ":13:18: port p1 is on node \"outt\", which no part connects to (nodes: gnd, in, out)"),
     ("port_negative_z0", ":13:39: port p1: z0 must be a positive real impedance in ohms, e.g. \"50\""),
     ("port_unknown_key", ":13:34: unknown key `impedance`, expected one of `between`, `z0`, `replaces`"),

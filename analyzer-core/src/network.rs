@@ -591,10 +591,16 @@ impl Network {
                     to,
                     phasor: Complex64::new(0.0, 0.0),
                 },
+                // A termination resistor the port's own z0 stands in for.
+                PartKind::Resistor { a, b, .. } => PartKind::CurrentSource {
+                    from: a,
+                    to: b,
+                    phasor: Complex64::new(0.0, 0.0),
+                },
                 _ => {
                     return Err(NetworkError::CannotReplace {
                         part: name,
-                        reason: "it is not a voltage or current source; a port replaces a source"
+                        reason: "it is not a source or a resistor; a port replaces a source or the termination resistor its z0 stands in for"
                             .into(),
                     })
                 }

@@ -535,3 +535,33 @@ p2 = { between = ["b", "gnd"], z0 = "75" }
         }
     }
 }
+
+#[test]
+fn a_port_that_replaces_its_termination_resistor_sees_the_network_without_it() {
+    // A series R = 100 Ω from a to b, and a 50 Ω load across b that port p2 stands in for:
+    // with the load replaced, S is the bare series element's, S21 = 2·z0/(2·z0 + R) = 0.5 and
+    // S11 = R/(2·z0 + R) = 0.5 (closed form); without `replaces` the load would sit in
+    // parallel with p2's own termination.
+    let text = resistive(
+        r#"R = { resistor = "100", between = ["a", "b"] }
+Rload = { resistor = "50", between = ["b", "gnd"] }"#,
+        "p1 = { between = [\"a\", \"gnd\"] }\np2 = { between = [\"b\", \"gnd\"], replaces = [\"Rload\"] }",
+    );
+    let (np, _) = nport(&text);
+    let s = s_at(&np, 5e3).s;
+    for (k, want) in [(0, 0.5), (2, 0.5), (1, 0.5), (3, 0.5)] {
+        assert!(
+            (s[k] - Complex64::new(want, 0.0)).norm() < 1e-12,
+            "S[{k}] = {}",
+            s[k]
+        );
+    }
+    let (np, _) = nport(&text.replace(", replaces = [\"Rload\"]", ""));
+    let s = s_at(&np, 5e3).s;
+    // Load 50 ∥ 50 = 25 Ω at b: S11 = (100 + 25 − 50)/(100 + 25 + 50) = 3/7 (closed form).
+    assert!(
+        (s[0] - Complex64::new(3.0 / 7.0, 0.0)).norm() < 1e-12,
+        "{}",
+        s[0]
+    );
+}

@@ -708,16 +708,28 @@ fn read_port(
                     format!("port {name} replaces {part:?}, which is not a part of this design"),
                 )
             })?;
-            if !matches!(
-                net.part(id).map(|p| &p.kind),
-                Some(PartKind::VoltageSource { .. } | PartKind::CurrentSource { .. })
-            ) {
-                return Err(pos.err(
-                    item.span(),
-                    format!(
-                        "port {name} replaces {part}, which is not a voltage or current source"
-                    ),
-                ));
+            // A source the port stands in for, or the termination resistor across the
+            // port's own nodes that its z0 takes the place of.
+            let across = |a: NodeId, b: NodeId| (a, b) == (plus, minus) || (a, b) == (minus, plus);
+            match net.part(id).map(|p| &p.kind) {
+                Some(PartKind::VoltageSource { .. } | PartKind::CurrentSource { .. }) => {}
+                Some(PartKind::Resistor { a, b, .. }) if across(*a, *b) => {}
+                Some(PartKind::Resistor { .. }) => {
+                    return Err(pos.err(
+                        item.span(),
+                        format!(
+                            "port {name} replaces {part}, a resistor that is not across the port's nodes; a port replaces a source, or the termination resistor across its own nodes"
+                        ),
+                    ))
+                }
+                _ => {
+                    return Err(pos.err(
+                        item.span(),
+                        format!(
+                            "port {name} replaces {part}, which is not a source or a termination resistor across the port"
+                        ),
+                    ))
+                }
             }
             replaces.push(id);
         }
