@@ -4,6 +4,7 @@
 //! the previous files intact (or none), never a half-written one.
 
 use crate::Failure;
+use analyzer_core::bode::{self, Bode, MagnitudeScale, Mark, PanelKind, Series};
 use analyzer_core::export;
 use analyzer_core::metrics::{Figures, Limit, Trace};
 use analyzer_core::noise::{self, NoisePlan};
@@ -11,6 +12,7 @@ use analyzer_core::ports::Complex;
 use analyzer_core::response::{AnalysisError, Evaluator, ResponseSpec};
 use analyzer_core::review::plots::{self, Drawn, PlotOptions};
 use analyzer_core::sweep::Grid;
+use analyzer_core::units::format_eng;
 use std::io::{BufWriter, Write};
 use std::path::{Path, PathBuf};
 use tempfile::NamedTempFile;
@@ -231,32 +233,60 @@ pub fn noise_svg(
         return Ok(None);
     }
     let (total, cols) = noise::densities(ev, index, &freqs)?;
-    let top: Vec<(String, Vec<(f64, f64)>)> = figures
+    let density = |name: String, v: &[f64]| Series {
+        name,
+        magnitude: freqs
+            .iter()
+            .zip(v)
+            .map(|(f, d)| (*f, 20.0 * d.log10()))
+            .collect(),
+        phase: Vec::new(),
+        delay: None,
+    };
+    let mut series = vec![density("total".into(), &total)];
+    let shares = figures
         .noise
         .as_ref()
-        .map(|n| n.contributors.iter().take(5).collect::<Vec<_>>())
-        .unwrap_or_default()
-        .into_iter()
-        .filter_map(|(name, share)| {
-            let k = plan.sources.iter().position(|s| &s.name == name)?;
-            let pts = freqs.iter().copied().zip(cols[k].iter().copied()).collect();
-            Some((format!("{name} ({share:.1} %)"), pts))
-        })
-        .collect();
+        .map(|n| n.contributors.iter().take(4).collect::<Vec<_>>())
+        .unwrap_or_default();
+    for (name, share) in shares {
+        if let Some(k) = plan.sources.iter().position(|s| &s.name == name) {
+            series.push(density(format!("{name} ({share:.1} %)"), &cols[k]));
+        }
+    }
     let spec = &ev.analysis().responses()[index];
     let label = match &spec.kind {
         analyzer_core::response::ResponseKind::Noise {
             referred_to: Some(_),
             ..
-        } => "noise referred to the input (V/√Hz)",
-        _ => "noise density (V/√Hz)",
+        } => "noise referred to the input",
+        _ => "noise density",
     };
-    let totals: Vec<(f64, f64)> = freqs.iter().copied().zip(total).collect();
-    let plot = export::NoisePlot {
+    let marks: Vec<Mark> = figures
+        .noise
+        .as_ref()
+        .map(|n| Mark {
+            freq: n.spot_hz,
+            panel: PanelKind::Magnitude,
+            value: 20.0 * n.spot_density.log10(),
+            label: format!(
+                "{}/√Hz at {}",
+                format_eng(n.spot_density, 3, "V"),
+                format_eng(n.spot_hz, 4, "Hz")
+            ),
+        })
+        .into_iter()
+        .collect();
+    let plot = Bode {
         title: format!("{title} — {}", spec.name),
-        label: label.into(),
-        total: &totals,
-        contributors: &top,
+        range: (freqs[0], freqs[freqs.len() - 1]),
+        series: &series,
+        scale: MagnitudeScale::Log("V/√Hz"),
+        magnitude_label: label.into(),
+        wrapped: false,
+        marks: &marks,
+        masks: &[],
+        loop_gain: false,
     };
-    Ok(export::render_noise_svg(&plot).ok())
+    Ok(bode::render(&plot).ok())
 }

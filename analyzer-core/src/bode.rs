@@ -522,14 +522,15 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
             .map(|p| p.1),
     )
     .unwrap_or((-90.0, 0.0));
-    let mut panels = vec![
-        (PanelKind::Magnitude, mag_axis, b.magnitude_label.clone()),
-        (
+    let mut panels = vec![(PanelKind::Magnitude, mag_axis, b.magnitude_label.clone())];
+    // A quantity with no phase (a noise density) has no phase panel.
+    if b.series.iter().any(|s| !s.phase.is_empty()) {
+        panels.push((
             PanelKind::Phase,
             phase_axis(phase_data.0, phase_data.1, b.wrapped),
             "phase".to_string(),
-        ),
-    ];
+        ));
+    }
     if b.series.iter().any(|s| s.delay.is_some()) {
         let d = span_of(
             b.series

@@ -398,19 +398,6 @@ fn titled<'b>(root: &SvgArea<'b>, title: &str) -> Result<SvgArea<'b>, PlotError>
     Ok(body)
 }
 
-/// A noise plot: the total density and the largest contributors on log-log axes.
-#[derive(Clone, Debug)]
-pub struct NoisePlot<'a> {
-    /// Title line.
-    pub title: String,
-    /// Axis label of the density, with its unit (V/√Hz, or referred).
-    pub label: String,
-    /// (frequency, total density) ascending.
-    pub total: &'a [(f64, f64)],
-    /// (name, (frequency, density) points), largest first.
-    pub contributors: &'a [(String, Vec<(f64, f64)>)],
-}
-
 /// Colours of the contributor traces (distinct on white and in greyscale steps).
 const CONTRIBUTOR_COLOURS: [RGBColor; 5] = [
     RGBColor(0xb3, 0x3c, 0x1a),
@@ -419,84 +406,6 @@ const CONTRIBUTOR_COLOURS: [RGBColor; 5] = [
     RGBColor(0x6b, 0x4c, 0x9a),
     RGBColor(0x5f, 0x7f, 0x3a),
 ];
-
-/// Renders a noise plot into an SVG string: density on a log axis against log frequency,
-/// the total bold, each contributor thin with its name in a legend.
-pub fn render_noise_svg(input: &NoisePlot<'_>) -> Result<String, PlotError> {
-    let pts = input.total;
-    let (f0, f1) = (
-        pts.first().map_or(1.0, |p| p.0),
-        pts.last().map_or(10.0, |p| p.0),
-    );
-    let positive = |v: f64| v > 0.0 && v.is_finite();
-    let ys = pts
-        .iter()
-        .map(|p| p.1)
-        .chain(
-            input
-                .contributors
-                .iter()
-                .flat_map(|c| c.1.iter().map(|p| p.1)),
-        )
-        .filter(|v| positive(*v));
-    let (lo, hi) = ys.fold((f64::INFINITY, 0.0f64), |(a, b), v| (a.min(v), b.max(v)));
-    if !(positive(f0) && f1 > f0 && positive(lo) && hi >= lo) {
-        return Err(PlotError(
-            "a noise plot needs positive densities over frequencies above 0 Hz".into(),
-        ));
-    }
-    // Three decades below the total's top at most: smaller contributors go off the bottom.
-    let top = pts.iter().map(|p| p.1).fold(0.0, f64::max);
-    let (y0, y1) = ((top / 1e3).max(lo) / 1.5, hi * 1.5);
-    let mut svg = String::new();
-    {
-        let root = SVGBackend::with_string(&mut svg, (960, 520)).into_drawing_area();
-        let body = titled(&root, &input.title)?;
-        let mut chart = ChartBuilder::on(&body)
-            .margin_left(12)
-            .margin_right(24)
-            .margin_top(6)
-            .margin_bottom(6)
-            .x_label_area_size(40)
-            .y_label_area_size(90)
-            .build_cartesian_2d((f0..f1).log_scale(), (y0..y1).log_scale())
-            .map_err(perr)?;
-        chart
-            .configure_mesh()
-            .y_desc(input.label.clone())
-            .x_desc("frequency (Hz)")
-            .light_line_style(MINOR)
-            .bold_line_style(DECADE)
-            .axis_style(INK)
-            .label_style(("sans-serif", 13).into_font().color(&INK))
-            .x_label_formatter(&|f| tidy_label(format_eng(*f, 3, "Hz")))
-            .y_label_formatter(&|v| tidy_label(format_eng(*v, 3, "V")))
-            .draw()
-            .map_err(perr)?;
-        for (k, (name, c)) in input.contributors.iter().enumerate().take(5) {
-            let colour = CONTRIBUTOR_COLOURS[k % CONTRIBUTOR_COLOURS.len()];
-            chart
-                .draw_series(LineSeries::new(
-                    c.iter().copied().filter(|p| positive(p.1)),
-                    colour.stroke_width(1),
-                ))
-                .map_err(perr)?
-                .label(name.clone())
-                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], colour));
-        }
-        chart
-            .draw_series(LineSeries::new(
-                pts.iter().copied().filter(|p| positive(p.1)),
-                TRACE.stroke_width(3),
-            ))
-            .map_err(perr)?
-            .label("total")
-            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], TRACE.stroke_width(3)));
-        legend(&mut chart, SeriesLabelPosition::UpperRight)?;
-        root.present().map_err(perr)?;
-    }
-    Ok(svg)
-}
 
 /// Where a root sits on the pole–zero chart: its natural frequency on a log radius (decades
 /// above `inner`), its angle the angle of `s` itself (the left half-plane on the left), so
