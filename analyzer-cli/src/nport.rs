@@ -113,7 +113,7 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
                 vswr_circle: args.vswr.or_else(|| {
                     d.port_limits.iter().find(|l| l.port == p.name).map(|l| {
                         l.max_vswr
-                            .unwrap_or_else(|| vswr_of_return_loss(l.min_return_loss_db))
+                            .unwrap_or_else(|| ports::vswr_of_return_loss(l.min_return_loss_db))
                     })
                 }),
             })
@@ -389,10 +389,4 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
         return Ok(crate::EXIT_CHECK_FAILED);
     }
     Ok(0)
-}
-
-/// VSWR of a return loss (dB): (1 + |Γ|)/(1 − |Γ|) with |Γ| = 10^(−RL/20).
-fn vswr_of_return_loss(rl_db: f64) -> f64 {
-    let g = 10f64.powf(-rl_db / 20.0);
-    (1.0 + g) / (1.0 - g)
 }

@@ -441,6 +441,13 @@ pub fn return_loss_of_vswr(vswr: f64) -> f64 {
     -20.0 * ((vswr - 1.0) / (vswr + 1.0)).log10()
 }
 
+/// VSWR of a return loss (dB): (1 + |Γ|)/(1 − |Γ|) with |Γ| = 10^(−RL/20); the inverse of
+/// [`return_loss_of_vswr`].
+pub fn vswr_of_return_loss(rl_db: f64) -> f64 {
+    let g = 10f64.powf(-rl_db / 20.0);
+    (1.0 + g) / (1.0 - g)
+}
+
 /// The outcome of a [`PortLimit`].
 #[derive(Clone, Debug, PartialEq, serde::Serialize)]
 pub struct PortLimitResult {
