@@ -8,7 +8,8 @@
 //! 2. A 10,000-section RC ladder (10,002 unknowns), 1,000 samples × 50 points: time per
 //!    solve inside the study against a single nominal sweep's.
 //!
-//! Set SPREAD_BENCH_SAMPLES to scale the sample counts (a fraction, e.g. 0.1).
+//! Set SPREAD_BENCH_SAMPLES to scale the sample counts (a fraction, e.g. 0.1), and
+//! SPREAD_BENCH_CASE=ladder5 or rc to run one case only.
 
 use analyzer_core::design;
 use analyzer_core::metrics::MetricOptions;
@@ -121,6 +122,11 @@ fn main() {
         .and_then(|s| s.parse().ok())
         .unwrap_or(1.0);
     let n = |k: f64| ((k * scale).round() as u64).max(1);
-    study(&ladder5(), n(10_000.0), "fifth-order ladder");
-    study(&rc_ladder(10_000), n(1_000.0), "10,000-section RC ladder");
+    let case = std::env::var("SPREAD_BENCH_CASE").unwrap_or_default();
+    if case.is_empty() || case == "ladder5" {
+        study(&ladder5(), n(10_000.0), "fifth-order ladder");
+    }
+    if case.is_empty() || case == "rc" {
+        study(&rc_ladder(10_000), n(1_000.0), "10,000-section RC ladder");
+    }
 }

@@ -573,12 +573,18 @@ impl<'e, 'a> Study<'e, 'a> {
         let shard = state.shard_ids.first().copied().unwrap_or(0);
         let m = state.shards.max(1);
         let indices: Vec<u64> = (shard..state.samples).step_by(m as usize).collect();
-        for block in indices.chunks(BLOCK) {
-            let outcomes: Vec<Outcome> = block.par_iter().map(|&i| self.evaluate(i)).collect();
-            for o in &outcomes {
-                state.add(o);
-            }
+        let evaluate = |block: &[u64]| -> Vec<Outcome> {
+            block.par_iter().map(|&i| self.evaluate(i)).collect()
+        };
+        // A pipeline: block b is folded into the state (in index order, on this thread)
+        // while block b + 1 is evaluated on the others, so the fold costs no wall time.
+        let mut blocks = indices.chunks(BLOCK);
+        let mut ready = blocks.next().map(evaluate);
+        while let Some(outcomes) = ready.take() {
+            let next = blocks.next();
+            let ((), evaluated) = rayon::join(|| state.add_block(&outcomes), || next.map(evaluate));
             sink(&outcomes)?;
+            ready = evaluated;
         }
         Ok(())
     }
@@ -664,25 +670,46 @@ impl SpreadState {
 
     /// Adds one sample.
     pub fn add(&mut self, o: &Outcome) {
-        self.done += 1;
-        if o.error.is_some() {
-            self.unsolved += 1;
-        }
-        if o.pass() {
-            self.all_passed += 1;
-        }
-        for (l, &p) in self.limits.iter_mut().zip(&o.passes) {
-            l.passed += u64::from(p && o.error.is_none());
-        }
-        for (f, &x) in self.figures.iter_mut().zip(&o.scalars) {
-            f.stat.add(x);
-        }
-        for (env, (db, ph)) in self.responses.iter_mut().zip(o.db.iter().zip(&o.phase)) {
-            for (s, &x) in env.db.iter_mut().zip(db) {
-                s.add(x);
+        self.add_block(std::slice::from_ref(o));
+    }
+
+    /// Adds samples in the order given, frequency by frequency (each statistic sees them in
+    /// that order, so the state is the same as adding them one at a time), so that each
+    /// statistic's bins stay in cache for the whole block.
+    pub fn add_block(&mut self, block: &[Outcome]) {
+        for o in block {
+            self.done += 1;
+            if o.error.is_some() {
+                self.unsolved += 1;
             }
-            for (s, &x) in env.phase.iter_mut().zip(ph) {
-                s.add(x);
+            if o.pass() {
+                self.all_passed += 1;
+            }
+            for (l, &p) in self.limits.iter_mut().zip(&o.passes) {
+                l.passed += u64::from(p && o.error.is_none());
+            }
+        }
+        for (k, f) in self.figures.iter_mut().enumerate() {
+            for o in block {
+                if let Some(&x) = o.scalars.get(k) {
+                    f.stat.add(x);
+                }
+            }
+        }
+        for (r, env) in self.responses.iter_mut().enumerate() {
+            for (k, s) in env.db.iter_mut().enumerate() {
+                for o in block {
+                    if let Some(&x) = o.db.get(r).and_then(|v| v.get(k)) {
+                        s.add(x);
+                    }
+                }
+            }
+            for (k, s) in env.phase.iter_mut().enumerate() {
+                for o in block {
+                    if let Some(&x) = o.phase.get(r).and_then(|v| v.get(k)) {
+                        s.add(x);
+                    }
+                }
             }
         }
     }
