@@ -286,6 +286,7 @@ pub fn noise_svg(
         wrapped: false,
         marks: &marks,
         masks: &[],
+        bands: &[],
         loop_gain: false,
     };
     Ok(bode::render(&plot).ok())

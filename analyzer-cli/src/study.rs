@@ -210,17 +210,12 @@ fn finish(
             .filter(|l| l.limit.response == env.name)
             .map(|l| l.limit.clone())
             .collect();
-        let label = if env.unit.is_empty() {
-            "magnitude (dB)".to_string()
-        } else {
-            format!("magnitude (dB re 1 {})", env.unit)
-        };
         let plot = EnvelopePlot {
             title: format!(
                 "{} — {}: spread of {} samples",
                 state.title, env.name, state.done
             ),
-            label,
+            unit: &env.unit,
             envelope: &traces,
             limits: &limits,
         };

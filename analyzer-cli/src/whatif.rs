@@ -325,7 +325,6 @@ pub fn run_sensitivity(args: &SensitivityArgs) -> Result<u8, Failure> {
                     ),
                     label: "change of |H| per +1 % (dB)".into(),
                     series: &series,
-                    zero_line: true,
                 })
                 .map_err(|e| err(&e))?;
                 staging.bytes(
@@ -605,6 +604,7 @@ pub fn run_variants(args: &VariantsArgs) -> Result<u8, Failure> {
                 wrapped: false,
                 marks: &[],
                 masks: &masks,
+                bands: &[],
                 loop_gain: spec.loop_gain,
             }) {
                 staging.bytes(

@@ -339,6 +339,17 @@ const HARNESS: &str = r#"<script>
 (function () {
   const r = {
     svgs: Array.from(document.querySelectorAll('svg')).map(s => { const b = s.getBoundingClientRect(); return [b.width, b.height]; }),
+    overlaps: Array.from(document.querySelectorAll('svg')).flatMap(s => {
+      const ts = Array.from(s.querySelectorAll('text')).filter(t => t.textContent.trim() !== '').map(t => [t.getBoundingClientRect(), t.textContent.trim().slice(0, 40)]);
+      const out = [];
+      for (let i = 0; i < ts.length; i++) for (let j = i + 1; j < ts.length; j++) {
+        const a = ts[i][0], b = ts[j][0];
+        const w = Math.min(a.right, b.right) - Math.max(a.left, b.left), h = Math.min(a.bottom, b.bottom) - Math.max(a.top, b.top);
+        if (w > 1 && h > 3) out.push([ts[i][1], ts[j][1], w, h]);
+      }
+      return out;
+    }),
+    texts: Array.from(document.querySelectorAll('svg text')).filter(t => t.textContent.trim() !== '').map(t => { const b = t.getBoundingClientRect(); return [b.height, t.textContent.trim().slice(0, 40)]; }),
     cells: Array.from(document.querySelectorAll('[data-json]')).map(c => [c.dataset.json, c.textContent]),
     resources: performance.getEntriesByType('resource').map(e => e.name),
     scripts: document.scripts.length,
@@ -467,6 +478,30 @@ fn every_example_page_renders_prints_and_matches_its_json_in_a_real_browser() {
                 "{name}: an SVG renders as {b}"
             );
         }
+        // Readable at 50 % zoom: every text of every plot renders at least 14 px high at
+        // 100 % in this 1000 px window (its box, ascent to descent), so at least 7 px at
+        // 50 % — our own rule (common practice puts the smallest legible screen text at
+        // 6-7 px).
+        let texts = r["texts"].as_array().expect("texts");
+        assert!(!texts.is_empty(), "{name}: no text in the plots");
+        let smallest = texts
+            .iter()
+            .min_by(|a, b| {
+                a[0].as_f64()
+                    .unwrap_or(0.0)
+                    .total_cmp(&b[0].as_f64().unwrap_or(0.0))
+            })
+            .expect("a text");
+        assert_eq!(
+            r["overlaps"].as_array().map(Vec::len),
+            Some(0),
+            "{name}: texts that overlap in a plot (first, second, overlap width and height in px): {}",
+            r["overlaps"]
+        );
+        assert!(
+            smallest[0].as_f64().unwrap_or(0.0) >= 14.0,
+            "{name}: plot text {smallest} renders under 14 px (7 px at 50 % zoom)"
+        );
         let cells: Vec<(String, String)> = r["cells"]
             .as_array()
             .expect("cells")

@@ -31,6 +31,10 @@ pub enum MagnitudeScale {
     /// |value| on a log axis in this unit (Ω for impedance, S for admittance); the series'
     /// magnitudes are still given in dB (re 1 unit) and converted for drawing.
     Log(&'static str),
+    /// A plain level on a linear axis (a sensitivity in dB per %): the data with 8 % of room
+    /// at each end, plain-number ticks (the axis label carries the unit) and the zero line
+    /// emphasised when it is in view.
+    Level,
 }
 
 /// Which panel a marker belongs to.
@@ -70,6 +74,18 @@ pub struct Mark {
     pub label: String,
 }
 
+/// A shaded band between two curves (a tolerance study's spread), drawn under the traces
+/// with a legend swatch.
+#[derive(Clone, Debug, Default)]
+pub struct Band {
+    /// Legend text.
+    pub name: String,
+    /// (frequency, lower, upper) ascending in frequency, in the magnitude panel's quantity.
+    pub points: Vec<(f64, f64, f64)>,
+    /// Opacity of the fill (0–1); bands drawn later lie on top.
+    pub opacity: f64,
+}
+
 /// A limit drawn as a forbidden region of the magnitude panel.
 #[derive(Clone, Debug, PartialEq)]
 pub struct Mask {
@@ -83,6 +99,19 @@ pub struct Mask {
     pub min_db: Option<f64>,
     /// The magnitude must stay at or below this (dB); above is forbidden.
     pub max_db: Option<f64>,
+}
+
+impl Mask {
+    /// A design limit's forbidden regions.
+    pub fn of(limit: &crate::metrics::Limit) -> Self {
+        Mask {
+            name: limit.name.clone(),
+            from: limit.from,
+            to: limit.to,
+            min_db: limit.min_db,
+            max_db: limit.max_db,
+        }
+    }
 }
 
 /// What to draw.
@@ -104,6 +133,8 @@ pub struct Bode<'a> {
     pub marks: &'a [Mark],
     /// Limits to draw.
     pub masks: &'a [Mask],
+    /// Bands to shade on the magnitude panel, under the traces.
+    pub bands: &'a [Band],
     /// A loop gain: 0 dB and −180° drawn as emphasised lines.
     pub loop_gain: bool,
 }
@@ -115,13 +146,14 @@ pub struct BodeError(pub String);
 
 /// Width of the drawing (px).
 pub const WIDTH: f64 = 880.0;
-const LEFT: f64 = 96.0;
+/// The least room left of the panels (more when tick labels are wide).
+const LEFT: f64 = 84.0;
 const RIGHT: f64 = 22.0;
 const PANEL_H: f64 = 210.0;
-const GAP: f64 = 14.0;
-const TICK_FONT: f64 = 13.0;
-const LABEL_FONT: f64 = 13.0;
-const TITLE_FONT: f64 = 18.0;
+const GAP: f64 = 24.0;
+const TICK_FONT: f64 = 15.0;
+const LABEL_FONT: f64 = 15.0;
+const TITLE_FONT: f64 = 20.0;
 
 /// The palette: five traces told apart by lightness and dash as well as hue, so they stay
 /// distinct in greyscale and for the common colour-vision deficiencies (blue–orange axis,
@@ -261,6 +293,41 @@ fn db_axis(lo: f64, hi: f64) -> Axis {
     }
 }
 
+/// A plain linear axis: the data with 8 % of room at each end (a flat trace gets ±10 % of its
+/// size, or ±1), ticks as plain numbers.
+fn level_axis(lo: f64, hi: f64) -> Axis {
+    let span = hi - lo;
+    let (lo, hi) = if span > 0.0 {
+        (lo - 0.08 * span, hi + 0.08 * span)
+    } else {
+        let r = if lo == 0.0 { 1.0 } else { 0.1 * lo.abs() };
+        (lo - r, hi + r)
+    };
+    let step = nice_step(hi - lo, 6.0);
+    let (a, b) = ((lo / step).floor() * step, (hi / step).ceil() * step);
+    // Enough decimals to tell the ticks apart (2.5 × 10^k needs one more).
+    let decimals = (-(step.log10().floor())
+        + if (step / 10f64.powf(step.log10().floor()) - 2.5).abs() < 1e-9 {
+            1.0
+        } else {
+            0.0
+        })
+    .max(0.0) as usize;
+    let mut ticks = Vec::new();
+    let mut k = (a / step).round();
+    while k * step <= b + step * 1e-9 && ticks.len() < 64 {
+        let v = k * step;
+        let v = if v.abs() < step * 1e-9 { 0.0 } else { v };
+        ticks.push((v, minus(trim(v, decimals))));
+        k += 1.0;
+    }
+    Axis {
+        lo: a,
+        hi: b,
+        ticks,
+    }
+}
+
 /// `lo`, `hi` in log10 of the magnitude.
 fn log_axis(lo: f64, hi: f64, unit: &str) -> Axis {
     let mut a = (lo - 0.1).floor();
@@ -347,10 +414,15 @@ fn delay_axis(lo: f64, hi: f64) -> Axis {
 
 /// A placed rectangle (x, y, w, h) in drawing coordinates.
 #[derive(Clone, Copy, Debug)]
-struct Boxed(f64, f64, f64, f64);
+pub(crate) struct Boxed(
+    pub(crate) f64,
+    pub(crate) f64,
+    pub(crate) f64,
+    pub(crate) f64,
+);
 
 impl Boxed {
-    fn overlaps(&self, o: &Boxed) -> bool {
+    pub(crate) fn overlaps(&self, o: &Boxed) -> bool {
         self.0 < o.0 + o.2 && o.0 < self.0 + self.2 && self.1 < o.1 + o.3 && o.1 < self.1 + self.3
     }
     fn inside(&self, o: &Boxed) -> bool {
@@ -366,6 +438,7 @@ impl Boxed {
 
 /// One panel's geometry.
 struct Frame {
+    left: f64,
     top: f64,
     axis: Axis,
 }
@@ -376,29 +449,56 @@ impl Frame {
         self.top + PANEL_H * (1.0 - t.clamp(-0.02, 1.02))
     }
     fn area(&self) -> Boxed {
-        Boxed(LEFT, self.top, WIDTH - LEFT - RIGHT, PANEL_H)
+        Boxed(self.left, self.top, WIDTH - self.left - RIGHT, PANEL_H)
     }
 }
 
 /// A label the placer has put somewhere.
-struct Placed {
-    text: String,
-    at: Boxed,
-    point: (f64, f64),
-    colour: &'static str,
+pub(crate) struct Placed {
+    pub(crate) text: String,
+    pub(crate) at: Boxed,
+    pub(crate) point: (f64, f64),
+    pub(crate) colour: &'static str,
 }
 
 /// Puts each label next to its point where it overlaps no other label, no marked point and
 /// stays inside the panel, preferring places the traces do not pass through; a label with no
 /// free place is numbered at its point and listed under the plot.
-struct Placer {
-    placed: Vec<Placed>,
-    points: Vec<(f64, f64)>,
-    footnotes: Vec<(usize, String, (f64, f64))>,
+pub(crate) struct Placer {
+    pub(crate) placed: Vec<Placed>,
+    pub(crate) points: Vec<(f64, f64)>,
+    /// (number, text, point, whether the number was placed as a label).
+    pub(crate) footnotes: Vec<(usize, String, (f64, f64), bool)>,
+    /// Font size of the labels (px).
+    pub(crate) font: f64,
 }
 
 impl Placer {
-    fn place(
+    pub(crate) fn new(font: f64) -> Self {
+        Placer {
+            placed: Vec::new(),
+            points: Vec::new(),
+            footnotes: Vec::new(),
+            font,
+        }
+    }
+
+    /// Keeps labels off a box already drawn (fixed text).
+    pub(crate) fn reserve(&mut self, at: Boxed) {
+        self.placed.push(Placed {
+            text: String::new(),
+            at,
+            point: (at.0, at.1),
+            colour: "",
+        });
+    }
+
+    /// The labels placed (not the reserved boxes).
+    pub(crate) fn labels(&self) -> impl Iterator<Item = &Placed> {
+        self.placed.iter().filter(|p| !p.text.is_empty())
+    }
+
+    pub(crate) fn place(
         &mut self,
         text: &str,
         point: (f64, f64),
@@ -406,8 +506,42 @@ impl Placer {
         traces: &[(f64, f64)],
         colour: &'static str,
     ) {
-        let h = LABEL_FONT + 4.0;
-        let w = text_width(text, LABEL_FONT) + 6.0;
+        match self.find(text, point, within, traces) {
+            Some(b) => self.placed.push(Placed {
+                text: text.to_string(),
+                at: b,
+                point,
+                colour,
+            }),
+            None => {
+                // Numbered at its point (the number placed like a label, where there is
+                // room) and listed under the plot.
+                let n = self.footnotes.len() + 1;
+                let number = self.find(&n.to_string(), point, within, traces);
+                if let Some(b) = number {
+                    self.placed.push(Placed {
+                        text: n.to_string(),
+                        at: b,
+                        point,
+                        colour,
+                    });
+                }
+                self.footnotes
+                    .push((n, text.to_string(), point, number.is_some()));
+            }
+        }
+    }
+
+    /// The best free place for a label next to `point`, if any.
+    fn find(
+        &self,
+        text: &str,
+        point: (f64, f64),
+        within: Boxed,
+        traces: &[(f64, f64)],
+    ) -> Option<Boxed> {
+        let h = self.font + 4.0;
+        let w = text_width(text, self.font) + 6.0;
         let mut best: Option<(usize, Boxed)> = None;
         'search: for dist in [10.0, 26.0, 44.0, 64.0, 86.0] {
             for (sx, sy) in [(1.0, -1.0), (-1.0, -1.0), (1.0, 1.0), (-1.0, 1.0)] {
@@ -439,18 +573,7 @@ impl Placer {
                 }
             }
         }
-        match best {
-            Some((_, b)) => self.placed.push(Placed {
-                text: text.to_string(),
-                at: b,
-                point,
-                colour,
-            }),
-            None => {
-                let n = self.footnotes.len() + 1;
-                self.footnotes.push((n, text.to_string(), point));
-            }
-        }
+        best.map(|(_, b)| b)
     }
 }
 
@@ -486,8 +609,6 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
         f1 *= 1.5;
     }
     let (l0, l1) = (f0.log10(), f1.log10());
-    let plot_w = WIDTH - LEFT - RIGHT;
-    let x = |f: f64| LEFT + plot_w * (f.log10() - l0) / (l1 - l0);
     let in_range = |f: f64| f >= f0 * (1.0 - 1e-12) && f <= f1 * (1.0 + 1e-12);
 
     // Magnitude in the axis' own units.
@@ -498,7 +619,14 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
             .iter()
             .flat_map(|s| s.magnitude.iter())
             .filter(|p| in_range(p.0))
-            .map(|p| mag_v(p.1)),
+            .map(|p| mag_v(p.1))
+            .chain(
+                b.bands
+                    .iter()
+                    .flat_map(|band| band.points.iter())
+                    .filter(|p| in_range(p.0))
+                    .flat_map(|p| [mag_v(p.1), mag_v(p.2)]),
+            ),
     )
     .ok_or_else(|| BodeError("no finite magnitude to draw".into()))?;
     let near =
@@ -513,6 +641,7 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
     let mag_axis = match b.scale {
         MagnitudeScale::Decibels => db_axis(mlo, mhi),
         MagnitudeScale::Log(unit) => log_axis(mlo, mhi, unit),
+        MagnitudeScale::Level => level_axis(mlo, mhi),
     };
     let phase_data = span_of(
         b.series
@@ -544,6 +673,16 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
         panels.push((PanelKind::Delay, delay_axis(d.0, d.1), "group delay".into()));
     }
 
+    // Room on the left for the widest tick label and the rotated axis label.
+    let widest = panels
+        .iter()
+        .flat_map(|p| p.1.ticks.iter())
+        .map(|t| text_width(&t.1, TICK_FONT))
+        .fold(0.0, f64::max);
+    let left = (widest + 6.0 + 34.0).max(LEFT);
+    let plot_w = WIDTH - left - RIGHT;
+    let x = |f: f64| left + plot_w * (f.log10() - l0) / (l1 - l0);
+
     // Title, legend rows, then the panels.
     let mut title_size = TITLE_FONT;
     while title_size > 12.0 && text_width(&b.title, title_size) > WIDTH - 32.0 {
@@ -554,14 +693,21 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
         title.pop();
         title = format!("{}…", title.trim_end_matches('…'));
     }
+    // Legend entries: (x, y, series index) for traces, (x, y, band index + series count)
+    // for bands.
     let mut legend: Vec<(f64, f64, usize)> = Vec::new();
-    let mut lx = LEFT;
+    let mut lx = left;
     let mut ly = 30.0 + title_size;
-    if b.series.len() > 1 {
-        for (k, s) in b.series.iter().enumerate() {
-            let w = 34.0 + text_width(&s.name, LABEL_FONT) + 18.0;
-            if lx + w > WIDTH - RIGHT && lx > LEFT {
-                lx = LEFT;
+    if b.series.len() > 1 || !b.bands.is_empty() {
+        let names = b
+            .series
+            .iter()
+            .map(|s| s.name.as_str())
+            .chain(b.bands.iter().map(|band| band.name.as_str()));
+        for (k, name) in names.enumerate() {
+            let w = 34.0 + text_width(name, LABEL_FONT) + 18.0;
+            if lx + w > WIDTH - RIGHT && lx > left {
+                lx = left;
                 ly += 20.0;
             }
             legend.push((lx, ly, k));
@@ -574,6 +720,7 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
         .iter()
         .enumerate()
         .map(|(i, p)| Frame {
+            left,
             top: first_top + i as f64 * (PANEL_H + GAP),
             axis: p.1.clone(),
         })
@@ -581,11 +728,7 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
     let bottom = frames.last().map_or(first_top, |f| f.top + PANEL_H);
 
     let mut body = String::new();
-    let mut placer = Placer {
-        placed: Vec::new(),
-        points: Vec::new(),
-        footnotes: Vec::new(),
-    };
+    let mut placer = Placer::new(LABEL_FONT);
     // Frequency ticks: decades labelled, minor lines, round ends labelled when clear.
     let mut xticks: Vec<(f64, String, bool)> = Vec::new();
     for d in (l0.floor() as i32)..=(l1.ceil() as i32) {
@@ -674,7 +817,7 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
             let yy = fr.y(*v);
             let _ = writeln!(
                 body,
-                r#"<line x1="{LEFT:.1}" y1="{yy:.1}" x2="{:.1}" y2="{yy:.1}" stroke="{}" stroke-width="1"/>"#,
+                r#"<line x1="{left:.1}" y1="{yy:.1}" x2="{:.1}" y2="{yy:.1}" stroke="{}" stroke-width="1"/>"#,
                 WIDTH - RIGHT,
                 if text.is_empty() { GRID_MINOR } else { GRID }
             );
@@ -682,7 +825,7 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
                 let _ = writeln!(
                     body,
                     r#"<text x="{:.1}" y="{:.1}" font-size="{TICK_FONT}" text-anchor="end" fill="{INK}">{}</text>"#,
-                    LEFT - 6.0,
+                    left - 6.0,
                     yy + 4.5,
                     escape(text)
                 );
@@ -720,7 +863,40 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
                 let yy = fr.y(*v);
                 let _ = writeln!(
                     body,
-                    r#"<line x1="{LEFT:.1}" y1="{yy:.1}" x2="{:.1}" y2="{yy:.1}" stroke="{INK}" stroke-width="1.6" stroke-dasharray="6 3"/>"#,
+                    r#"<line x1="{left:.1}" y1="{yy:.1}" x2="{:.1}" y2="{yy:.1}" stroke="{INK}" stroke-width="1.6" stroke-dasharray="6 3"/>"#,
+                    WIDTH - RIGHT
+                );
+            }
+        }
+        // Bands, then the zero line of a plain level.
+        if *kind == PanelKind::Magnitude {
+            let (colour, _) = PALETTE[0];
+            for band in b.bands {
+                let pts: Vec<(f64, f64, f64)> = band
+                    .points
+                    .iter()
+                    .filter(|p| in_range(p.0) && p.1.is_finite() && p.2.is_finite())
+                    .map(|p| (x(p.0), fr.y(mag_v(p.1)), fr.y(mag_v(p.2))))
+                    .collect();
+                if pts.len() < 2 {
+                    continue;
+                }
+                let upper = pts.iter().map(|p| Some((p.0, p.2)));
+                let mut d = path(upper);
+                for p in pts.iter().rev() {
+                    let _ = write!(d, "L{:.1} {:.1}", p.0, p.1);
+                }
+                let _ = writeln!(
+                    body,
+                    r#"<path d="{d}Z" fill="{colour}" fill-opacity="{:.2}" stroke="none"/>"#,
+                    band.opacity.clamp(0.0, 1.0)
+                );
+            }
+            if b.scale == MagnitudeScale::Level && axis.lo < 0.0 && axis.hi > 0.0 {
+                let yy = fr.y(0.0);
+                let _ = writeln!(
+                    body,
+                    r#"<line x1="{left:.1}" y1="{yy:.1}" x2="{:.1}" y2="{yy:.1}" stroke="{INK}" stroke-width="1.4"/>"#,
                     WIDTH - RIGHT
                 );
             }
@@ -841,7 +1017,7 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
         }
     }
     // Frequency labels under the last panel.
-    let axis_y = bottom + 18.0;
+    let axis_y = bottom + 24.0;
     for (f, text, _) in xticks.iter().filter(|t| !t.1.is_empty()) {
         // Centred under the tick, but kept inside the drawing at either end.
         let half = 0.5 * text_width(text, TICK_FONT);
@@ -855,11 +1031,11 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
     let _ = writeln!(
         body,
         r#"<text x="{:.1}" y="{:.1}" font-size="{LABEL_FONT}" text-anchor="middle" fill="{INK}">frequency</text>"#,
-        LEFT + plot_w / 2.0,
+        left + plot_w / 2.0,
         axis_y + 20.0
     );
     // Labels last, on a white ground, with a leader to their point.
-    for p in &placer.placed {
+    for p in placer.labels() {
         let Boxed(bx, by, bw, bh) = p.at;
         let (cx, cy) = (
             bx.max(p.point.0.min(bx + bw)),
@@ -882,16 +1058,18 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
         );
     }
     let mut height = axis_y + 32.0;
-    for (n, text, point) in &placer.footnotes {
+    for (n, text, point, number_placed) in &placer.footnotes {
+        if !number_placed {
+            let _ = writeln!(
+                body,
+                r#"<text x="{:.1}" y="{:.1}" font-size="{LABEL_FONT}" font-weight="bold" fill="{MARK}">{n}</text>"#,
+                point.0 + 5.0,
+                point.1 - 5.0
+            );
+        }
         let _ = writeln!(
             body,
-            r#"<text x="{:.1}" y="{:.1}" font-size="11" font-weight="bold" fill="{MARK}">{n}</text>"#,
-            point.0 + 5.0,
-            point.1 - 5.0
-        );
-        let _ = writeln!(
-            body,
-            r#"<text x="{LEFT:.1}" y="{:.1}" font-size="{LABEL_FONT}" fill="{MARK}">{n}: {}</text>"#,
+            r#"<text x="{left:.1}" y="{:.1}" font-size="{LABEL_FONT}" fill="{MARK}">{n}: {}</text>"#,
             height + 4.0,
             escape(text)
         );
@@ -916,6 +1094,19 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
         escape(&title)
     );
     for (lx, ly, k) in &legend {
+        if let Some(band) = k.checked_sub(b.series.len()).and_then(|j| b.bands.get(j)) {
+            let _ = writeln!(
+                svg,
+                r#"<rect x="{lx:.1}" y="{:.1}" width="28" height="10" fill="{}" fill-opacity="{:.2}"/><text x="{:.1}" y="{:.1}" font-size="{LABEL_FONT}" fill="{INK}">{}</text>"#,
+                ly - 9.5,
+                PALETTE[0].0,
+                band.opacity.clamp(0.0, 1.0),
+                lx + 34.0,
+                ly,
+                escape(&band.name)
+            );
+            continue;
+        }
         let (colour, dash) = PALETTE[k % PALETTE.len()];
         let _ = writeln!(
             svg,
@@ -966,6 +1157,7 @@ mod tests {
             wrapped: false,
             marks,
             masks,
+            bands: &[],
             loop_gain: false,
         }
     }

@@ -349,19 +349,6 @@ fn perr<E: std::fmt::Display>(e: E) -> PlotError {
     PlotError(e.to_string())
 }
 
-fn padded_range(values: &[f64], min_span: f64) -> (f64, f64) {
-    let finite = values.iter().copied().filter(|v| v.is_finite());
-    let (lo, hi) = finite.fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
-        (a.min(v), b.max(v))
-    });
-    if !lo.is_finite() {
-        return (-1.0, 1.0);
-    }
-    let span = (hi - lo).max(min_span);
-    let mid = 0.5 * (hi + lo);
-    (mid - 0.55 * span, mid + 0.55 * span)
-}
-
 const INK: RGBColor = RGBColor(0x1f, 0x3b, 0x57);
 const TRACE: RGBColor = RGBColor(0x0b, 0x6e, 0x4f);
 const MARK: RGBColor = RGBColor(0xb3, 0x3c, 0x1a);
@@ -369,6 +356,196 @@ const DECADE: RGBColor = RGBColor(0xa8, 0xb4, 0xc0);
 const MINOR: RGBColor = RGBColor(0xe2, 0xe7, 0xec);
 
 /// Draws the legend of a chart's labelled series in our style.
+/// The charts below are drawn by plotters (whose SVG writer rounds every coordinate to a
+/// whole unit) in a coordinate space `HI` times larger than the picture, every size scaled
+/// alike, and [`scaled_down`] sets the picture's size back: coordinates then have a quarter
+/// of a pixel's resolution, and no trace shows stair steps.
+const HI: u32 = 4;
+/// [`HI`] for plotters' signed pixel offsets.
+const HI_I: i32 = HI as i32;
+
+/// Sets a plotters SVG drawn at `HI` times its size back to its picture size (the viewBox
+/// keeps the drawing's coordinates).
+fn scaled_down(svg: String) -> String {
+    let Some(end) = svg.find('>') else { return svg };
+    let head = &svg[..end];
+    let attr = |name: &str| -> Option<u32> {
+        let at = head.find(&format!(" {name}=\""))? + name.len() + 3;
+        let rest = &head[at..];
+        rest[..rest.find('"')?].parse().ok()
+    };
+    let (Some(w), Some(h)) = (attr("width"), attr("height")) else {
+        return svg;
+    };
+    let new_head = head
+        .replacen(
+            &format!(" width=\"{w}\""),
+            &format!(" width=\"{}\"", w / HI),
+            1,
+        )
+        .replacen(
+            &format!(" height=\"{h}\""),
+            &format!(" height=\"{}\"", h / HI),
+            1,
+        );
+    format!("{new_head}{}", &svg[end..])
+}
+
+/// Display size (px) of a plotters font size given at `HI`×: plotters writes sizes in
+/// points, 1.24 to the pixel (measured in its output: size 20 is written as 16.13).
+fn shown_size(size: i32) -> f64 {
+    f64::from(size) / 1.24 / f64::from(HI)
+}
+
+/// Font size of the marks' labels on the charts drawn by plotters (at `HI`×).
+const CHART_LABEL: i32 = 16 * HI_I;
+
+/// Labels of marked points on a chart drawn by plotters at `HI`×, placed by the Bode writer's
+/// placer in display pixels: no label overlaps another, a fixed text (reserved) or a marked
+/// point, all stay inside the plotting area and off the traces where they can; a label with
+/// no room is numbered at its point and listed at the foot of the picture.
+struct ChartLabels {
+    placer: crate::bode::Placer,
+    within: crate::bode::Boxed,
+    traces: Vec<(f64, f64)>,
+    /// Colours of the placed labels, then of the footnoted ones, in their order.
+    placed_colours: Vec<RGBColor>,
+    footnote_colours: Vec<RGBColor>,
+}
+
+impl ChartLabels {
+    /// For a chart whose plotting area spans these backend pixels.
+    fn new(area: (std::ops::Range<i32>, std::ops::Range<i32>)) -> Self {
+        let d = |v: i32| f64::from(v) / f64::from(HI);
+        ChartLabels {
+            placer: crate::bode::Placer::new(shown_size(CHART_LABEL)),
+            within: crate::bode::Boxed(
+                d(area.0.start),
+                d(area.1.start),
+                d(area.0.end - area.0.start),
+                d(area.1.end - area.1.start),
+            ),
+            traces: Vec::new(),
+            placed_colours: Vec::new(),
+            footnote_colours: Vec::new(),
+        }
+    }
+
+    fn display(p: (i32, i32)) -> (f64, f64) {
+        (
+            f64::from(p.0) / f64::from(HI),
+            f64::from(p.1) / f64::from(HI),
+        )
+    }
+
+    /// Keeps labels off a text drawn at backend point `p` (top-left anchored) in font `size`.
+    fn reserve(&mut self, p: (i32, i32), text: &str, size: i32) {
+        let (x, y) = Self::display(p);
+        let h = shown_size(size);
+        self.placer.reserve(crate::bode::Boxed(
+            x - 2.0,
+            y - 2.0,
+            crate::bode::text_width(text, h) + 4.0,
+            h + 4.0,
+        ));
+    }
+
+    /// Like [`ChartLabels::reserve`], but only when the text would overlap nothing kept
+    /// clear so far; says whether it did (the caller draws the text only then).
+    fn try_reserve(&mut self, p: (i32, i32), text: &str, size: i32) -> bool {
+        let (x, y) = Self::display(p);
+        let h = shown_size(size);
+        let b = crate::bode::Boxed(x, y, crate::bode::text_width(text, h), h);
+        if self.placer.placed.iter().any(|q| q.at.overlaps(&b)) {
+            return false;
+        }
+        self.reserve(p, text, size);
+        true
+    }
+
+    /// Keeps labels off the legend box in a top corner of the plotting area (display px).
+    fn reserve_legend(&mut self, right: bool, w: f64, h: f64) {
+        let a = self.within;
+        let x = if right { a.0 + a.2 - w } else { a.0 };
+        self.placer.reserve(crate::bode::Boxed(x, a.1, w, h));
+    }
+
+    /// A trace the labels should avoid (backend pixels).
+    fn avoid(&mut self, pts: impl Iterator<Item = (i32, i32)>) {
+        self.traces.extend(pts.map(Self::display));
+    }
+
+    /// Marked points (backend pixels) with their labels: every point is kept clear before
+    /// any label is placed.
+    fn mark_all(&mut self, marks: &[((i32, i32), String, RGBColor)]) {
+        for (p, _, _) in marks {
+            self.placer.points.push(Self::display(*p));
+        }
+        for (p, text, colour) in marks {
+            let at = Self::display(*p);
+            let (placed, footnoted) = (self.placer.placed.len(), self.placer.footnotes.len());
+            self.placer.place(text, at, self.within, &self.traces, "");
+            if self.placer.placed.len() > placed {
+                self.placed_colours.push(*colour);
+            }
+            if self.placer.footnotes.len() > footnoted {
+                self.footnote_colours.push(*colour);
+            }
+        }
+    }
+
+    /// Draws the labels onto `root` (backend pixels), footnotes from `foot_y` (display px).
+    fn draw(&self, root: &SvgArea<'_>, foot_y: f64) -> Result<(), PlotError> {
+        let b = |v: f64| (v * f64::from(HI)).round() as i32;
+        let font = ("sans-serif", CHART_LABEL).into_font();
+        let placed: Vec<&crate::bode::Placed> = self.placer.labels().collect();
+        for (k, p) in placed.iter().enumerate() {
+            let colour = self.placed_colours.get(k).copied().unwrap_or(INK);
+            let crate::bode::Boxed(bx, by, bw, bh) = p.at;
+            let (cx, cy) = (
+                bx.max(p.point.0.min(bx + bw)),
+                by.max(p.point.1.min(by + bh)),
+            );
+            if (cx - p.point.0).hypot(cy - p.point.1) > 8.0 {
+                root.draw(&PathElement::new(
+                    vec![(b(p.point.0), b(p.point.1)), (b(cx), b(cy))],
+                    colour.stroke_width(HI),
+                ))
+                .map_err(perr)?;
+            }
+            root.draw(&Rectangle::new(
+                [(b(bx), b(by)), (b(bx + bw), b(by + bh))],
+                WHITE.mix(0.88).filled(),
+            ))
+            .map_err(perr)?;
+            root.draw(&Text::new(
+                p.text.clone(),
+                (b(bx + 3.0), b(by + 2.0)),
+                font.clone().color(&colour),
+            ))
+            .map_err(perr)?;
+        }
+        for (k, (n, text, point, number_placed)) in self.placer.footnotes.iter().enumerate() {
+            let colour = self.footnote_colours.get(k).copied().unwrap_or(MARK);
+            if !number_placed {
+                root.draw(&Text::new(
+                    format!("{n}"),
+                    (b(point.0 + 5.0), b(point.1 - 18.0)),
+                    font.clone().color(&colour),
+                ))
+                .map_err(perr)?;
+            }
+            root.draw(&Text::new(
+                format!("{n}: {text}"),
+                (b(16.0), b(foot_y + 18.0 * (*n as f64 - 1.0))),
+                font.clone().color(&colour),
+            ))
+            .map_err(perr)?;
+        }
+        Ok(())
+    }
+}
+
 fn legend<'b, CT: plotters::coord::CoordTranslate>(
     chart: &mut ChartContext<'b, SVGBackend<'b>, CT>,
     position: SeriesLabelPosition,
@@ -377,7 +554,9 @@ fn legend<'b, CT: plotters::coord::CoordTranslate>(
         .configure_series_labels()
         .background_style(WHITE.mix(0.85))
         .border_style(MINOR)
-        .label_font(("sans-serif", 12).into_font().color(&INK))
+        .label_font(("sans-serif", 15 * HI_I).into_font().color(&INK))
+        .legend_area_size(30 * HI)
+        .margin(5 * HI)
         .position(position)
         .draw()
         .map_err(perr)
@@ -388,24 +567,15 @@ type SvgArea<'b> = DrawingArea<SVGBackend<'b>, plotters::coord::Shift>;
 /// Fills a plot white, writes its title line, and returns the area below the title.
 fn titled<'b>(root: &SvgArea<'b>, title: &str) -> Result<SvgArea<'b>, PlotError> {
     root.fill(&WHITE).map_err(perr)?;
-    let (head, body) = root.split_vertically(44);
+    let (head, body) = root.split_vertically(44 * HI);
     head.draw(&Text::new(
         title.to_string(),
-        (16, 14),
-        ("sans-serif", 20).into_font().color(&INK),
+        (16 * HI_I, 14 * HI_I),
+        ("sans-serif", 20 * HI_I).into_font().color(&INK),
     ))
     .map_err(perr)?;
     Ok(body)
 }
-
-/// Colours of the contributor traces (distinct on white and in greyscale steps).
-const CONTRIBUTOR_COLOURS: [RGBColor; 5] = [
-    RGBColor(0xb3, 0x3c, 0x1a),
-    RGBColor(0x3a, 0x6e, 0xa5),
-    RGBColor(0xc9, 0x8b, 0x1a),
-    RGBColor(0x6b, 0x4c, 0x9a),
-    RGBColor(0x5f, 0x7f, 0x3a),
-];
 
 /// Where a root sits on the pole–zero chart: its natural frequency on a log radius (decades
 /// above `inner`), its angle the angle of `s` itself (the left half-plane on the left), so
@@ -446,20 +616,21 @@ pub fn render_pole_zero_svg(
     let mut svg = String::new();
     {
         let (w, h) = (760u32, 460u32);
-        let root = SVGBackend::with_string(&mut svg, (w, h)).into_drawing_area();
+        let root = SVGBackend::with_string(&mut svg, (w * HI, h * HI)).into_drawing_area();
         root.fill(&WHITE).map_err(perr)?;
-        let (top, body) = root.split_vertically(44);
+        let (top, body) = root.split_vertically(44 * HI);
         top.draw(&Text::new(
             title.to_string(),
-            (16, 14),
-            ("sans-serif", 20).into_font().color(&INK),
+            (16 * HI_I, 14 * HI_I),
+            ("sans-serif", 20 * HI_I).into_font().color(&INK),
         ))
         .map_err(perr)?;
         let pad = 0.12 * r_max;
         let mut chart = ChartBuilder::on(&body)
-            .margin(16)
+            .margin(16 * HI)
             .build_cartesian_2d(-(r_max + pad)..(r_max + pad), -0.04 * r_max..(r_max + pad))
             .map_err(perr)?;
+        let mut labels = ChartLabels::new(chart.plotting_area().get_pixel_range());
         // The right half-plane, shaded.
         chart
             .draw_series(std::iter::once(Rectangle::new(
@@ -477,14 +648,16 @@ pub fn render_pole_zero_svg(
                 })
                 .collect();
             chart
-                .draw_series(LineSeries::new(arc, MINOR.stroke_width(1)))
+                .draw_series(LineSeries::new(arc, MINOR.stroke_width(HI)))
                 .map_err(perr)?;
             let f = inner * 10f64.powi(d);
+            let text = tidy_label(format_eng(f, 3, "Hz"));
+            labels.reserve(chart.backend_coord(&(0.04 * r_max, r)), &text, 15 * HI_I);
             chart
                 .draw_series(std::iter::once(Text::new(
-                    tidy_label(format_eng(f, 3, "Hz")),
+                    text,
                     (0.04 * r_max, r),
-                    ("sans-serif", 12).into_font().color(&INK),
+                    ("sans-serif", 15 * HI_I).into_font().color(&INK),
                 )))
                 .map_err(perr)?;
         }
@@ -494,45 +667,64 @@ pub fn render_pole_zero_svg(
             for side in [PI - theta, theta] {
                 let end = (r_max * side.cos(), r_max * side.sin());
                 chart
-                    .draw_series(LineSeries::new([(0.0, 0.0), end], MINOR.stroke_width(1)))
+                    .draw_series(LineSeries::new([(0.0, 0.0), end], MINOR.stroke_width(HI)))
                     .map_err(perr)?;
                 if side > PI / 2.0 {
-                    chart
-                        .draw_series(std::iter::once(Text::new(
-                            format!("Q {}", tidy_label(format!("{q:.2}"))),
-                            (end.0 * 1.04, end.1 * 1.04),
-                            ("sans-serif", 11).into_font().color(&DECADE),
-                        )))
-                        .map_err(perr)?;
+                    // Anchored at its right end, so the label runs away from the jω axis.
+                    let text = format!("Q {}", tidy_label(format!("{q:.2}")));
+                    let at = chart.backend_coord(&(end.0 * 1.02, end.1 * 1.02));
+                    let w = (crate::bode::text_width(&text, shown_size(14 * HI_I)) * f64::from(HI))
+                        as i32;
+                    let h = (shown_size(14 * HI_I) * f64::from(HI)) as i32;
+                    if !labels.try_reserve((at.0 - w, at.1 - h), &text, 14 * HI_I) {
+                        continue;
+                    }
+                    root.draw(&Text::new(
+                        text,
+                        (at.0 - w, at.1 - h),
+                        ("sans-serif", 14 * HI_I).into_font().color(&DECADE),
+                    ))
+                    .map_err(perr)?;
                 }
             }
         }
         chart
             .draw_series(LineSeries::new(
                 [(-(r_max + pad), 0.0), (r_max + pad, 0.0)],
-                INK.stroke_width(1),
+                INK.stroke_width(HI),
             ))
             .map_err(perr)?;
         chart
             .draw_series(LineSeries::new(
                 [(0.0, 0.0), (0.0, r_max + pad)],
-                INK.stroke_width(1),
+                INK.stroke_width(HI),
             ))
             .map_err(perr)?;
         chart
             .draw_series(std::iter::once(Text::new(
                 "jω",
                 (0.02 * r_max, r_max + 0.6 * pad),
-                ("sans-serif", 13).into_font().color(&INK),
+                ("sans-serif", 16 * HI_I).into_font().color(&INK),
             )))
             .map_err(perr)?;
+        labels.reserve(
+            chart.backend_coord(&(-(r_max + pad) * 0.98, -0.03 * r_max)),
+            "stable (left half-plane)",
+            14 * HI_I,
+        );
+        labels.reserve(
+            chart.backend_coord(&(0.02 * r_max, r_max + 0.6 * pad)),
+            "jω",
+            16 * HI_I,
+        );
         chart
             .draw_series(std::iter::once(Text::new(
                 "stable (left half-plane)",
                 (-(r_max + pad) * 0.98, -0.03 * r_max),
-                ("sans-serif", 11).into_font().color(&INK),
+                ("sans-serif", 14 * HI_I).into_font().color(&INK),
             )))
             .map_err(perr)?;
+        let mut marked = Vec::new();
         for r in rows {
             let (x, y) = chart_xy(r.s_re, r.s_im, inner);
             let label = match r.q {
@@ -544,24 +736,27 @@ pub fn render_pole_zero_svg(
             let color = if r.what == "pole" { MARK } else { TRACE };
             if r.what == "pole" {
                 let mark = EmptyElement::at((x, y))
-                    + PathElement::new(vec![(-6, -6), (6, 6)], color.stroke_width(2))
-                    + PathElement::new(vec![(-6, 6), (6, -6)], color.stroke_width(2))
-                    + Text::new(
-                        label,
-                        (8, -16),
-                        ("sans-serif", 11).into_font().color(&color),
+                    + PathElement::new(
+                        vec![(-6 * HI_I, -6 * HI_I), (6 * HI_I, 6 * HI_I)],
+                        color.stroke_width(2 * HI),
+                    )
+                    + PathElement::new(
+                        vec![(-6 * HI_I, 6 * HI_I), (6 * HI_I, -6 * HI_I)],
+                        color.stroke_width(2 * HI),
                     );
                 chart.draw_series(std::iter::once(mark)).map_err(perr)?;
             } else {
                 let mark = EmptyElement::at((x, y))
-                    + Circle::new((0, 0), 6, color.stroke_width(2))
-                    + Text::new(label, (8, 4), ("sans-serif", 11).into_font().color(&color));
+                    + Circle::new((0, 0), 6 * HI, color.stroke_width(2 * HI));
                 chart.draw_series(std::iter::once(mark)).map_err(perr)?;
             }
+            marked.push((chart.backend_coord(&(x, y)), label, color));
         }
+        labels.mark_all(&marked);
+        labels.draw(&root, f64::from(h) - 40.0)?;
         root.present().map_err(perr)?;
     }
-    Ok(svg)
+    Ok(scaled_down(svg))
 }
 
 /// The poles and zeros as CSV: one row per root (both members of a pair), with its natural
@@ -638,67 +833,29 @@ mod tests {
     }
 }
 
-type LevelChart<'b> = ChartContext<
-    'b,
-    SVGBackend<'b>,
-    Cartesian2d<
-        plotters::coord::combinators::LogCoord<f64>,
-        plotters::coord::types::RangedCoordf64,
-    >,
->;
-
-/// A single panel over log frequency with a linear axis of levels, its grid and labels drawn.
-fn level_chart<'b>(
-    body: &SvgArea<'b>,
-    (f0, f1): (f64, f64),
-    (y0, y1): (f64, f64),
-    label: &str,
-) -> Result<LevelChart<'b>, PlotError> {
-    let mut chart = ChartBuilder::on(body)
-        .margin_left(12)
-        .margin_right(24)
-        .margin_top(6)
-        .margin_bottom(6)
-        .x_label_area_size(40)
-        .y_label_area_size(78)
-        .build_cartesian_2d((f0..f1).log_scale(), y0..y1)
-        .map_err(perr)?;
-    chart
-        .configure_mesh()
-        .y_desc(label.to_string())
-        .x_desc("frequency (Hz)")
-        .light_line_style(MINOR)
-        .bold_line_style(DECADE)
-        .axis_style(INK)
-        .label_style(("sans-serif", 13).into_font().color(&INK))
-        .x_label_formatter(&|f| tidy_label(format_eng(*f, 3, "Hz")))
-        .y_label_formatter(&|v| tidy_label(format_eng(*v, 3, "")))
-        .draw()
-        .map_err(perr)?;
-    Ok(chart)
-}
-
 /// What an envelope plot shows: a tolerance study's spread of |H| with the nominal trace.
 #[derive(Clone, Debug)]
 pub struct EnvelopePlot<'a> {
     /// Title line.
     pub title: String,
-    /// Axis label of the magnitude, with its unit.
-    pub label: String,
+    /// The response's unit symbol: "" for a ratio (drawn in dB), "Ω" or "S" (|Z| or |Y| on a
+    /// log axis, as the Bode plots draw them), anything else in dB re 1 unit.
+    pub unit: &'a str,
     /// The spread.
     pub envelope: &'a crate::spread::EnvelopeTraces,
     /// Limits on this response, drawn as masks over their forbidden regions.
     pub limits: &'a [crate::metrics::Limit],
 }
 
-const SPREAD_OUTER: RGBColor = RGBColor(0xcf, 0xe6, 0xdc);
-const SPREAD_INNER: RGBColor = RGBColor(0x8f, 0xc4, 0xad);
-const MASK: RGBColor = RGBColor(0xb3, 0x3c, 0x1a);
+fn bode_error(e: crate::bode::BodeError) -> PlotError {
+    PlotError(e.0)
+}
 
-/// Renders an envelope plot: the min–max band light, the 5–95 % band darker, the nominal
-/// trace on top, and each limit's forbidden region (above `max_db`, below `min_db`, over its
-/// frequency range) as a translucent mask with its name.
+/// Renders an envelope plot with the Bode writer: the min–max band light, the 5–95 % band
+/// darker, the nominal trace on top, and each limit's forbidden region as a mask with its
+/// name.
 pub fn render_envelope_svg(input: &EnvelopePlot<'_>) -> Result<String, PlotError> {
+    use crate::bode::{Band, Bode, MagnitudeScale, Mask, Series};
     let e = input.envelope;
     let keep: Vec<usize> = (0..e.freqs.len())
         .filter(|&k| e.freqs[k] > 0.0 && e.min[k].is_finite() && e.max[k].is_finite())
@@ -708,92 +865,41 @@ pub fn render_envelope_svg(input: &EnvelopePlot<'_>) -> Result<String, PlotError
             "an envelope plot needs finite magnitudes at frequencies above 0 Hz".into(),
         ));
     };
-    let (mut f0, mut f1) = (e.freqs[first], e.freqs[last]);
-    if f1 <= f0 {
-        f0 /= 1.5;
-        f1 *= 1.5;
-    }
-    let mut ys: Vec<f64> = keep.iter().flat_map(|&k| [e.min[k], e.max[k]]).collect();
-    for l in input.limits {
-        ys.extend(l.min_db.iter().chain(l.max_db.iter()).copied());
-    }
-    let (y0, y1) = padded_range(&ys, 1.0);
-    let mut svg = String::new();
-    {
-        let root = SVGBackend::with_string(&mut svg, (960, 520)).into_drawing_area();
-        let body = titled(&root, &input.title)?;
-        let mut chart = level_chart(&body, (f0, f1), (y0, y1), &input.label)?;
-        let band = |lo: &[f64], hi: &[f64]| -> Vec<(f64, f64)> {
-            let mut pts: Vec<(f64, f64)> = keep.iter().map(|&k| (e.freqs[k], hi[k])).collect();
-            pts.extend(keep.iter().rev().map(|&k| (e.freqs[k], lo[k])));
-            pts.retain(|p| p.1.is_finite());
-            pts
-        };
-        chart
-            .draw_series(std::iter::once(Polygon::new(
-                band(&e.min, &e.max),
-                SPREAD_OUTER.filled(),
-            )))
-            .map_err(perr)?
-            .label("min … max")
-            .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 18, y + 5)], SPREAD_OUTER.filled()));
-        chart
-            .draw_series(std::iter::once(Polygon::new(
-                band(&e.p5, &e.p95),
-                SPREAD_INNER.filled(),
-            )))
-            .map_err(perr)?
-            .label("5 % … 95 %")
-            .legend(|(x, y)| Rectangle::new([(x, y - 5), (x + 18, y + 5)], SPREAD_INNER.filled()));
-        for l in input.limits {
-            let (a, b) = (l.from.max(f0), l.to.min(f1));
-            if a >= b {
-                continue;
-            }
-            for (lo, hi) in [l.max_db.map(|m| (m, y1)), l.min_db.map(|m| (y0, m))]
-                .into_iter()
-                .flatten()
-            {
-                if hi <= lo {
-                    continue;
-                }
-                chart
-                    .draw_series(std::iter::once(Rectangle::new(
-                        [(a, lo), (b, hi)],
-                        MASK.mix(0.12).filled(),
-                    )))
-                    .map_err(perr)?;
-                let edge = if hi == y1 { lo } else { hi };
-                chart
-                    .draw_series(LineSeries::new(
-                        [(a, edge), (b, edge)],
-                        MASK.stroke_width(2),
-                    ))
-                    .map_err(perr)?;
-            }
-            let y = l.max_db.or(l.min_db).unwrap_or(y0);
-            chart
-                .draw_series(std::iter::once(Text::new(
-                    l.name.clone(),
-                    (a, y),
-                    ("sans-serif", 12).into_font().color(&MASK),
-                )))
-                .map_err(perr)?;
-        }
-        chart
-            .draw_series(LineSeries::new(
-                keep.iter()
-                    .map(|&k| (e.freqs[k], e.nominal[k]))
-                    .filter(|p| p.1.is_finite()),
-                TRACE.stroke_width(2),
-            ))
-            .map_err(perr)?
-            .label("nominal")
-            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], TRACE.stroke_width(2)));
-        legend(&mut chart, SeriesLabelPosition::LowerLeft)?;
-        root.present().map_err(perr)?;
-    }
-    Ok(svg)
+    let (scale, label) = match input.unit {
+        "" => (MagnitudeScale::Decibels, "magnitude (dB)".to_string()),
+        "Ω" => (MagnitudeScale::Log("Ω"), "|Z| (Ω)".to_string()),
+        "S" => (MagnitudeScale::Log("S"), "|Y| (S)".to_string()),
+        u => (MagnitudeScale::Decibels, format!("magnitude (dB re 1 {u})")),
+    };
+    let band = |name: &str, lo: &[f64], hi: &[f64], opacity: f64| Band {
+        name: name.into(),
+        points: keep.iter().map(|&k| (e.freqs[k], lo[k], hi[k])).collect(),
+        opacity,
+    };
+    let bands = [
+        band("min … max", &e.min, &e.max, 0.16),
+        band("5 % … 95 %", &e.p5, &e.p95, 0.32),
+    ];
+    let series = [Series {
+        name: "nominal".into(),
+        magnitude: keep.iter().map(|&k| (e.freqs[k], e.nominal[k])).collect(),
+        phase: Vec::new(),
+        delay: None,
+    }];
+    let masks: Vec<Mask> = input.limits.iter().map(Mask::of).collect();
+    crate::bode::render(&Bode {
+        title: input.title.clone(),
+        range: (e.freqs[first], e.freqs[last]),
+        series: &series,
+        scale,
+        magnitude_label: label,
+        wrapped: false,
+        marks: &[],
+        masks: &masks,
+        bands: &bands,
+        loop_gain: false,
+    })
+    .map_err(bode_error)
 }
 
 /// Several labelled traces on one log-frequency axis (variants of a design, sensitivities).
@@ -805,12 +911,12 @@ pub struct LinesPlot<'a> {
     pub label: String,
     /// (legend label, (frequency, value) points ascending), drawn in this order.
     pub series: &'a [(String, Vec<(f64, f64)>)],
-    /// A horizontal reference line (e.g. 0 for a sensitivity), where wanted.
-    pub zero_line: bool,
 }
 
-/// Renders several traces over log frequency with a legend; the first is drawn bold.
+/// Renders several traces of a plain level over log frequency with the Bode writer (its
+/// palette and legend, sub-pixel coordinates, the zero line emphasised).
 pub fn render_lines_svg(input: &LinesPlot<'_>) -> Result<String, PlotError> {
+    use crate::bode::{Bode, MagnitudeScale, Series};
     let pts = || {
         input
             .series
@@ -826,47 +932,32 @@ pub fn render_lines_svg(input: &LinesPlot<'_>) -> Result<String, PlotError> {
             "a plot over frequency needs two frequencies above 0 Hz".into(),
         ));
     }
-    let ys: Vec<f64> = pts()
-        .map(|p| p.1)
-        .chain(input.zero_line.then_some(0.0))
+    let series: Vec<Series> = input
+        .series
+        .iter()
+        .map(|(name, points)| Series {
+            name: name.clone(),
+            magnitude: points.iter().copied().filter(|p| p.0 > 0.0).collect(),
+            phase: Vec::new(),
+            delay: None,
+        })
         .collect();
-    let (y0, y1) = padded_range(&ys, 0.1);
-    let mut svg = String::new();
-    {
-        let root = SVGBackend::with_string(&mut svg, (960, 520)).into_drawing_area();
-        let body = titled(&root, &input.title)?;
-        let mut chart = level_chart(&body, (f0, f1), (y0, y1), &input.label)?;
-        if input.zero_line {
-            chart
-                .draw_series(LineSeries::new([(f0, 0.0), (f1, 0.0)], INK.stroke_width(1)))
-                .map_err(perr)?;
-        }
-        for (k, (name, points)) in input.series.iter().enumerate() {
-            let colour = if k == 0 {
-                TRACE
-            } else {
-                CONTRIBUTOR_COLOURS[(k - 1) % CONTRIBUTOR_COLOURS.len()]
-            };
-            let width = if k == 0 { 3 } else { 2 };
-            chart
-                .draw_series(LineSeries::new(
-                    points
-                        .iter()
-                        .copied()
-                        .filter(|p| p.0 > 0.0 && p.1.is_finite()),
-                    colour.stroke_width(width),
-                ))
-                .map_err(perr)?
-                .label(name.clone())
-                .legend(move |(x, y)| {
-                    PathElement::new(vec![(x, y), (x + 18, y)], colour.stroke_width(width))
-                });
-        }
-        legend(&mut chart, SeriesLabelPosition::LowerLeft)?;
-        root.present().map_err(perr)?;
-    }
-    Ok(svg)
+    crate::bode::render(&Bode {
+        title: input.title.clone(),
+        range: (f0, f1),
+        series: &series,
+        scale: MagnitudeScale::Level,
+        magnitude_label: input.label.clone(),
+        wrapped: false,
+        marks: &[],
+        masks: &[],
+        bands: &[],
+        loop_gain: false,
+    })
+    .map_err(bode_error)
 }
+
+const MASK: RGBColor = RGBColor(0xb3, 0x3c, 0x1a);
 
 /// A circle of radius `r` about (cx, cy), as 361 points (closed).
 fn circle_points(cx: f64, cy: f64, r: f64) -> impl Iterator<Item = (f64, f64)> {
@@ -894,12 +985,13 @@ pub struct SmithPlot<'a> {
 pub fn render_smith_svg(input: &SmithPlot<'_>) -> Result<String, PlotError> {
     let mut svg = String::new();
     {
-        let root = SVGBackend::with_string(&mut svg, (720, 760)).into_drawing_area();
+        let root = SVGBackend::with_string(&mut svg, (720 * HI, 760 * HI)).into_drawing_area();
         let body = titled(&root, &input.title)?;
         let mut chart = ChartBuilder::on(&body)
-            .margin(16)
+            .margin(16 * HI)
             .build_cartesian_2d(-1.12f64..1.12f64, -1.12f64..1.12f64)
             .map_err(perr)?;
+        let mut labels = ChartLabels::new(chart.plotting_area().get_pixel_range());
         // The part of a circle inside the unit circle (the chart's edge).
         let circle = |cx: f64, cy: f64, r: f64| -> Vec<(f64, f64)> {
             circle_points(cx, cy, r)
@@ -910,22 +1002,27 @@ pub fn render_smith_svg(input: &SmithPlot<'_>) -> Result<String, PlotError> {
         chart
             .draw_series(LineSeries::new(
                 [(-1.0, 0.0), (1.0, 0.0)],
-                DECADE.stroke_width(1),
+                DECADE.stroke_width(HI),
             ))
             .map_err(perr)?;
         for r in [0.2, 0.5, 1.0, 2.0, 5.0] {
             chart
                 .draw_series(LineSeries::new(
                     circle(r / (1.0 + r), 0.0, 1.0 / (1.0 + r)),
-                    DECADE.stroke_width(1),
+                    DECADE.stroke_width(HI),
                 ))
                 .map_err(perr)?;
             let x0 = (r - 1.0) / (r + 1.0);
+            labels.reserve(
+                chart.backend_coord(&(x0 + 0.01, 0.02)),
+                &format!("{r}"),
+                14 * HI_I,
+            );
             chart
                 .draw_series(std::iter::once(Text::new(
                     format!("{r}"),
                     (x0 + 0.01, 0.02),
-                    ("sans-serif", 11).into_font().color(&INK),
+                    ("sans-serif", 14 * HI_I).into_font().color(&INK),
                 )))
                 .map_err(perr)?;
         }
@@ -942,29 +1039,42 @@ pub fn render_smith_svg(input: &SmithPlot<'_>) -> Result<String, PlotError> {
                     })
                     .collect();
                 chart
-                    .draw_series(LineSeries::new(pts, MINOR.mix(1.0).stroke_width(1)))
+                    .draw_series(LineSeries::new(pts, MINOR.mix(1.0).stroke_width(HI)))
                     .map_err(perr)?;
                 let z = num_complex::Complex64::new(0.0, xs);
                 let g = (z - 1.0) / (z + 1.0);
+                labels.reserve(
+                    chart.backend_coord(&(g.re * 1.04, g.im * 1.04)),
+                    &format!("+{x}j"),
+                    14 * HI_I,
+                );
                 chart
                     .draw_series(std::iter::once(Text::new(
                         format!("{}{x}j", if sign < 0.0 { "−" } else { "+" }),
                         (g.re * 1.04, g.im * 1.04),
-                        ("sans-serif", 11).into_font().color(&INK),
+                        ("sans-serif", 14 * HI_I).into_font().color(&INK),
                     )))
                     .map_err(perr)?;
             }
         }
         chart
-            .draw_series(LineSeries::new(circle(0.0, 0.0, 1.0), INK.stroke_width(2)))
+            .draw_series(LineSeries::new(
+                circle(0.0, 0.0, 1.0),
+                INK.stroke_width(2 * HI),
+            ))
             .map_err(perr)?;
         if let Some(s) = input.vswr_circle.filter(|s| *s >= 1.0 && s.is_finite()) {
             let g = (s - 1.0) / (s + 1.0);
             chart
-                .draw_series(LineSeries::new(circle(0.0, 0.0, g), MASK.stroke_width(2)))
+                .draw_series(LineSeries::new(
+                    circle(0.0, 0.0, g),
+                    MASK.stroke_width(2 * HI),
+                ))
                 .map_err(perr)?
-                .label(format!("VSWR {s}"))
-                .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], MASK.stroke_width(2)));
+                .label(format!("VSWR {}", tidy_label(format_eng(s, 3, ""))))
+                .legend(|(x, y)| {
+                    PathElement::new(vec![(x, y), (x + 18 * HI_I, y)], MASK.stroke_width(2 * HI))
+                });
         }
         let pts: Vec<(f64, f64)> = input
             .gamma
@@ -973,10 +1083,12 @@ pub fn render_smith_svg(input: &SmithPlot<'_>) -> Result<String, PlotError> {
             .filter(|p| p.0.is_finite() && p.1.is_finite())
             .collect();
         chart
-            .draw_series(LineSeries::new(pts, TRACE.stroke_width(2)))
+            .draw_series(LineSeries::new(pts, TRACE.stroke_width(2 * HI)))
             .map_err(perr)?
             .label("Γ")
-            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], TRACE.stroke_width(2)));
+            .legend(|(x, y)| {
+                PathElement::new(vec![(x, y), (x + 18 * HI_I, y)], TRACE.stroke_width(2 * HI))
+            });
         // Markers: the ends and each decade crossed.
         let mut marks: Vec<(f64, num_complex::Complex64)> = Vec::new();
         if let (Some(first), Some(last)) = (input.gamma.first(), input.gamma.last()) {
@@ -989,20 +1101,30 @@ pub fn render_smith_svg(input: &SmithPlot<'_>) -> Result<String, PlotError> {
             }
             marks.push(*last);
         }
+        labels.avoid(
+            input
+                .gamma
+                .iter()
+                .filter(|(_, g)| g.re.is_finite() && g.im.is_finite())
+                .map(|(_, g)| chart.backend_coord(&(g.re, g.im))),
+        );
+        let mut marked = Vec::new();
         for (f, g) in marks {
-            let mark = EmptyElement::at((g.re, g.im))
-                + Circle::new((0, 0), 3, MARK.filled())
-                + Text::new(
-                    tidy_label(format_eng(f, 3, "Hz")),
-                    (5, -12),
-                    ("sans-serif", 11).into_font().color(&MARK),
-                );
+            let mark = EmptyElement::at((g.re, g.im)) + Circle::new((0, 0), 3 * HI, MARK.filled());
             chart.draw_series(std::iter::once(mark)).map_err(perr)?;
+            marked.push((
+                chart.backend_coord(&(g.re, g.im)),
+                tidy_label(format_eng(f, 3, "Hz")),
+                MARK,
+            ));
         }
+        labels.reserve_legend(true, 170.0, 60.0);
+        labels.mark_all(&marked);
+        labels.draw(&root, 760.0 - 60.0)?;
         legend(&mut chart, SeriesLabelPosition::UpperRight)?;
         root.present().map_err(perr)?;
     }
-    Ok(svg)
+    Ok(scaled_down(svg))
 }
 
 /// What a Nyquist chart shows: a loop gain L(jω) over the sweep, with its margins.
@@ -1051,39 +1173,45 @@ pub fn render_nyquist_svg(input: &NyquistPlot<'_>) -> Result<String, PlotError> 
         * 1.08;
     let mut svg = String::new();
     {
-        let root = SVGBackend::with_string(&mut svg, (720, 760)).into_drawing_area();
+        let root = SVGBackend::with_string(&mut svg, (720 * HI, 760 * HI)).into_drawing_area();
         let body = titled(&root, &input.title)?;
         let mut chart = ChartBuilder::on(&body)
-            .margin(16)
+            .margin(16 * HI)
             .build_cartesian_2d(-extent..extent, -extent..extent)
             .map_err(perr)?;
+        let mut labels = ChartLabels::new(chart.plotting_area().get_pixel_range());
         chart
             .draw_series(LineSeries::new(
                 [(-extent, 0.0), (extent, 0.0)],
-                DECADE.stroke_width(1),
+                DECADE.stroke_width(HI),
             ))
             .map_err(perr)?;
         chart
             .draw_series(LineSeries::new(
                 [(0.0, -extent), (0.0, extent)],
-                DECADE.stroke_width(1),
+                DECADE.stroke_width(HI),
             ))
             .map_err(perr)?;
         // Rings at |L| = 10, 100, … on the compressed scale.
         let mut ring = 10.0;
         while nyquist_radius(ring) < extent {
             let r = nyquist_radius(ring);
+            labels.reserve(
+                chart.backend_coord(&(r * 0.72, r * 0.72)),
+                &format!("|L| = {}", tidy_label(format_eng(ring, 3, "")).trim()),
+                14 * HI_I,
+            );
             chart
                 .draw_series(LineSeries::new(
                     circle_points(0.0, 0.0, r),
-                    MINOR.stroke_width(1),
+                    MINOR.stroke_width(HI),
                 ))
                 .map_err(perr)?;
             chart
                 .draw_series(std::iter::once(Text::new(
                     format!("|L| = {}", tidy_label(format_eng(ring, 3, "")).trim()),
                     (r * 0.72, r * 0.72),
-                    ("sans-serif", 11).into_font().color(&INK),
+                    ("sans-serif", 14 * HI_I).into_font().color(&INK),
                 )))
                 .map_err(perr)?;
             ring *= 10.0;
@@ -1091,27 +1219,43 @@ pub fn render_nyquist_svg(input: &NyquistPlot<'_>) -> Result<String, PlotError> 
         chart
             .draw_series(LineSeries::new(
                 circle_points(0.0, 0.0, 1.0),
-                INK.stroke_width(1),
+                INK.stroke_width(HI),
             ))
             .map_err(perr)?
             .label("unit circle")
-            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], INK.stroke_width(1)));
+            .legend(|(x, y)| {
+                PathElement::new(vec![(x, y), (x + 18 * HI_I, y)], INK.stroke_width(HI))
+            });
         chart
             .draw_series(LineSeries::new(
                 pts.iter().map(|p| (p.0, -p.1)),
-                TRACE.mix(0.35).stroke_width(1),
+                TRACE.mix(0.35).stroke_width(HI),
             ))
             .map_err(perr)?
             .label("ω < 0 (mirror)")
-            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], TRACE.mix(0.35)));
+            .legend(|(x, y)| {
+                PathElement::new(
+                    vec![(x, y), (x + 18 * HI_I, y)],
+                    TRACE.mix(0.35).stroke_width(HI),
+                )
+            });
         chart
-            .draw_series(LineSeries::new(pts.iter().copied(), TRACE.stroke_width(2)))
+            .draw_series(LineSeries::new(
+                pts.iter().copied(),
+                TRACE.stroke_width(2 * HI),
+            ))
             .map_err(perr)?
             .label("L(jω), ω > 0")
-            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], TRACE.stroke_width(2)));
+            .legend(|(x, y)| {
+                PathElement::new(vec![(x, y), (x + 18 * HI_I, y)], TRACE.stroke_width(2 * HI))
+            });
         let minus_one = EmptyElement::at((-1.0, 0.0))
-            + Cross::new((0, 0), 6, MASK.stroke_width(2))
-            + Text::new("−1", (6, 4), ("sans-serif", 13).into_font().color(&MASK));
+            + Cross::new((0, 0), 6 * HI_I, MASK.stroke_width(2 * HI))
+            + Text::new(
+                "−1",
+                (6 * HI_I, 4 * HI_I),
+                ("sans-serif", 16 * HI_I).into_font().color(&MASK),
+            );
         chart
             .draw_series(std::iter::once(minus_one))
             .map_err(perr)?;
@@ -1145,22 +1289,31 @@ pub fn render_nyquist_svg(input: &NyquistPlot<'_>) -> Result<String, PlotError> 
                 ));
             }
         }
-        for (k, (p, label)) in marks.into_iter().enumerate() {
-            let dy = 14 + 16 * k as i32;
-            let mark = EmptyElement::at(p)
-                + Circle::new((0, 0), 4, MARK.filled())
-                + Text::new(label, (8, dy), ("sans-serif", 12).into_font().color(&MARK));
+        labels.reserve(chart.backend_coord(&(-1.0, 0.0)), "−1  ", 16 * HI_I);
+        labels.reserve(
+            chart.backend_coord(&(-extent * 0.97, -extent * 0.95)),
+            "radius: |L| up to 1, 1 + log10|L| beyond (compressed)",
+            14 * HI_I,
+        );
+        labels.avoid(pts.iter().map(|p| chart.backend_coord(p)));
+        let mut marked = Vec::new();
+        for (p, label) in marks {
+            let mark = EmptyElement::at(p) + Circle::new((0, 0), 4 * HI, MARK.filled());
             chart.draw_series(std::iter::once(mark)).map_err(perr)?;
+            marked.push((chart.backend_coord(&p), label, MARK));
         }
+        labels.reserve_legend(false, 190.0, 75.0);
+        labels.mark_all(&marked);
+        labels.draw(&root, 760.0 - 40.0)?;
         chart
             .draw_series(std::iter::once(Text::new(
                 "radius: |L| up to 1, 1 + log10|L| beyond (compressed)".to_string(),
                 (-extent * 0.97, -extent * 0.95),
-                ("sans-serif", 11).into_font().color(&INK),
+                ("sans-serif", 14 * HI_I).into_font().color(&INK),
             )))
             .map_err(perr)?;
         legend(&mut chart, SeriesLabelPosition::UpperLeft)?;
         root.present().map_err(perr)?;
     }
-    Ok(svg)
+    Ok(scaled_down(svg))
 }

@@ -859,11 +859,7 @@ pub fn tolerance_results(
                 "{} — {}: spread of {} samples",
                 net.title, env.name, state.done
             ),
-            label: if env.unit.is_empty() {
-                "magnitude (dB)".into()
-            } else {
-                format!("magnitude (dB re 1 {})", env.unit)
-            },
+            unit: &env.unit,
             envelope: &traces,
             limits: &on_it,
         };

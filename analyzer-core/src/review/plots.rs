@@ -194,13 +194,7 @@ pub fn masks(limits: &[Limit], name: &str) -> Vec<Mask> {
     limits
         .iter()
         .filter(|l| l.response == name)
-        .map(|l| Mask {
-            name: l.name.clone(),
-            from: l.from,
-            to: l.to,
-            min_db: l.min_db,
-            max_db: l.max_db,
-        })
+        .map(Mask::of)
         .collect()
 }
 
@@ -280,6 +274,7 @@ pub fn bode_svg(
         wrapped: opts.wrapped,
         marks: &all_marks,
         masks: &all_masks,
+        bands: &[],
         loop_gain: first.spec.loop_gain,
     };
     bode::render(&plot).map(Some)
