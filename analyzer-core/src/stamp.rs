@@ -202,20 +202,26 @@ impl System {
             let k = sys.branch[i];
             stamp(&mut st, &sys, net, &part.kind, k, state[i]);
         }
-        // Sort by (column, row) and merge duplicates: the union pattern of G and C.
-        st.triplets.sort_unstable_by_key(|t| (t.1, t.0));
-        for (r, c, gv, cv) in st.triplets {
-            if sys.pattern.last() == Some(&(r, c)) {
-                if let (Some(g), Some(cc)) = (sys.g.last_mut(), sys.c.last_mut()) {
-                    *g += gv;
-                    *cc += cv;
-                }
+        // Sort by (column, row) and merge duplicates in place: the union pattern of G and
+        // C. The merged entries are then copied out at their exact size, so a large network
+        // touches no memory it does not keep (fresh pages cost the kernel's clearing).
+        let t = &mut st.triplets;
+        t.sort_unstable_by_key(|t| (t.1, t.0));
+        let mut kept = 0;
+        for i in 0..t.len() {
+            if kept > 0 && (t[kept - 1].0, t[kept - 1].1) == (t[i].0, t[i].1) {
+                t[kept - 1].2 += t[i].2;
+                t[kept - 1].3 += t[i].3;
             } else {
-                sys.pattern.push((r, c));
-                sys.g.push(gv);
-                sys.c.push(cv);
+                t[kept] = t[i];
+                kept += 1;
             }
         }
+        t.truncate(kept);
+        sys.pattern = t.iter().map(|e| (e.0, e.1)).collect();
+        sys.g = t.iter().map(|e| e.2).collect();
+        sys.c = t.iter().map(|e| e.3).collect();
+        drop(st.triplets);
         for (k, &(r, c)) in sys.pattern.iter().enumerate() {
             if let Some(row) = sys.row_abs.get_mut(r) {
                 row.0 += sys.g[k].abs();

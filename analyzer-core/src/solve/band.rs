@@ -43,24 +43,49 @@ impl BandLayout {
     /// make a valid matrix (which assembly never produces).
     pub fn new(sys: &System) -> Option<BandLayout> {
         let n = sys.n;
-        // The symmetric pattern of A + Aᵀ, diagonal included, as CSR with sorted rows.
-        let mut pairs: Vec<(usize, usize)> = sys
-            .pattern
-            .iter()
-            .flat_map(|&(r, c)| [(r, c), (c, r)])
-            .chain((0..n).map(|i| (i, i)))
-            .filter(|&(r, c)| r < n && c < n)
-            .collect();
-        pairs.sort_unstable();
-        pairs.dedup();
-        let mut indptr = vec![0usize; n + 1];
-        for &(r, _) in &pairs {
-            indptr[r + 1] += 1;
+        // The symmetric pattern of A + Aᵀ, diagonal included, as CSR with sorted rows,
+        // built in place (counted, filled, each row sorted and deduplicated): no list of
+        // pairs twice the pattern's size is ever made.
+        let entries = || {
+            sys.pattern
+                .iter()
+                .flat_map(|&(r, c)| [(r, c), (c, r)])
+                .chain((0..n).map(|i| (i, i)))
+                .filter(|&(r, c)| r < n && c < n)
+        };
+        let mut start = vec![0usize; n + 1];
+        for (r, _) in entries() {
+            start[r + 1] += 1;
         }
         for i in 0..n {
-            indptr[i + 1] += indptr[i];
+            start[i + 1] += start[i];
         }
-        let indices: Vec<usize> = pairs.iter().map(|&(_, c)| c).collect();
+        let mut fill = start.clone();
+        let mut all = vec![0usize; start[n]];
+        for (r, c) in entries() {
+            all[fill[r]] = c;
+            fill[r] += 1;
+        }
+        drop(fill);
+        let mut indptr = vec![0usize; n + 1];
+        let mut kept = 0;
+        for i in 0..n {
+            let row = &mut all[start[i]..start[i + 1]];
+            row.sort_unstable();
+            let mut last = None;
+            for k in start[i]..start[i + 1] {
+                let c = all[k];
+                if last != Some(c) {
+                    all[kept] = c;
+                    kept += 1;
+                    last = Some(c);
+                }
+            }
+            indptr[i + 1] = kept;
+        }
+        drop(start);
+        all.truncate(kept);
+        let indices = all;
         let data = vec![1u8; indices.len()];
         let pattern = sprs::CsMat::try_new((n, n), indptr, indices, data).ok()?;
         let order: Vec<usize> = if n == 0 {
