@@ -5,6 +5,8 @@
 //! engineering units on every tick.
 //!
 //! Axis rules (the plot states what it shows; these decide what range it shows):
+//! * limits: the forbidden side of each bound shaded to the panel's edge; a two-sided limit
+//!   whose window is under 24 px high is shaded as 12 px strips beyond each bound instead.
 //! * magnitude in dB: the data (and any limit level within 40 dB of it) plus headroom of
 //!   8 % of the span, at least 3 dB, above the highest point and 5 % below the lowest; the
 //!   span is at least 20 dB (widened downwards), so a 2 dB ripple reads as ripple and a 0 dB
@@ -170,6 +172,10 @@ const GRID: &str = "#c9d1da";
 const GRID_MINOR: &str = "#eaeef2";
 const MARK: &str = "#a4243b";
 const MASK_FILL: &str = "#a4243b";
+/// A two-sided limit whose window is narrower than this (px) is shaded as strips.
+const NARROW_WINDOW: f64 = 24.0;
+/// Height of those strips (px).
+const MASK_STRIP: f64 = 12.0;
 
 /// Escapes text for SVG and HTML content and attribute values.
 pub fn escape(s: &str) -> String {
@@ -909,13 +915,23 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
                     continue;
                 }
                 let (xa, xc) = (x(a), x(c));
+                // A window narrower than NARROW_WINDOW px between two bounds (a ±0.5 dB
+                // passband on a 100 dB axis) shades only a strip of MASK_STRIP px beyond
+                // each bound: shading everything outside it would cover the panel.
+                let narrow = match (m.min_db, m.max_db) {
+                    (Some(lo), Some(hi)) => {
+                        (fr.y(mag_v(lo)) - fr.y(mag_v(hi))).abs() < NARROW_WINDOW
+                    }
+                    _ => false,
+                };
                 for (level, above) in [(m.max_db, true), (m.min_db, false)] {
                     let Some(level) = level else { continue };
                     let yy = fr.y(mag_v(level));
-                    let (y_from, y_to) = if above {
-                        (fr.top, yy)
-                    } else {
-                        (yy, fr.top + PANEL_H)
+                    let (y_from, y_to) = match (above, narrow) {
+                        (true, false) => (fr.top, yy),
+                        (false, false) => (yy, fr.top + PANEL_H),
+                        (true, true) => ((yy - MASK_STRIP).max(fr.top), yy),
+                        (false, true) => (yy, (yy + MASK_STRIP).min(fr.top + PANEL_H)),
                     };
                     if y_to - y_from > 0.05 {
                         let _ = writeln!(
@@ -1224,6 +1240,41 @@ mod tests {
                 assert!(!a.overlaps(b), "{a:?} {b:?}");
             }
         }
+    }
+
+    #[test]
+    fn a_narrow_window_is_shaded_as_strips_and_a_one_sided_limit_to_the_edge() {
+        let s = [line(200)];
+        let heights = |masks: &[Mask]| -> Vec<f64> {
+            let svg = render(&plot(&s, &[], masks)).unwrap();
+            svg.split("<rect ")
+                .filter(|r| r.contains(r#"fill-opacity="0.13""#))
+                .map(|r| {
+                    let h = r.split("height=\"").nth(1).unwrap();
+                    h[..h.find('"').unwrap()].parse().unwrap()
+                })
+                .collect()
+        };
+        let window = Mask {
+            name: "pass".into(),
+            from: 10.0,
+            to: 500.0,
+            min_db: Some(-0.5),
+            max_db: Some(0.5),
+        };
+        let h = heights(std::slice::from_ref(&window));
+        assert_eq!(h.len(), 2);
+        assert!(h.iter().all(|&v| v <= MASK_STRIP + 1e-9), "{h:?}");
+        let stop = Mask {
+            name: "stop".into(),
+            from: 1e4,
+            to: 1e5,
+            min_db: None,
+            max_db: Some(-30.0),
+        };
+        let h = heights(&[stop]);
+        assert_eq!(h.len(), 1);
+        assert!(h[0] > 3.0 * MASK_STRIP, "{h:?}");
     }
 
     #[test]

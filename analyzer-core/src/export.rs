@@ -796,6 +796,33 @@ mod tests {
     use super::*;
 
     #[test]
+    fn nyquist_rings_read_as_powers_of_ten_not_prefixes() {
+        assert_eq!(ring_label(10.0), "|L| = 10");
+        assert_eq!(ring_label(1000.0), "|L| = 1000");
+        assert_eq!(ring_label(1e5), "|L| = 10⁵");
+        assert_eq!(ring_label(1e12), "|L| = 10¹²");
+    }
+
+    #[test]
+    fn charts_drawn_at_four_times_keep_their_picture_size() {
+        let svg = render_nyquist_svg(&NyquistPlot {
+            title: "t".into(),
+            loop_gain: &[
+                (1.0, Complex64::new(100.0, -10.0)),
+                (10.0, Complex64::new(-0.5, -0.5)),
+            ],
+            phase_margin: None,
+            gain_margin: None,
+        })
+        .unwrap();
+        assert!(
+            svg.starts_with(r#"<svg width="720" height="760" viewBox="0 0 2880 3040""#),
+            "{}",
+            &svg[..100]
+        );
+    }
+
+    #[test]
     fn unwraps_phase_continuously() {
         let vals: Vec<Complex64> = [170.0f64, -170.0, -150.0, 160.0]
             .iter()
@@ -1140,6 +1167,21 @@ pub struct NyquistPlot<'a> {
     pub gain_margin: Option<(f64, f64)>,
 }
 
+/// A ring's label: |L| as a power of ten ("|L| = 10⁴"), never an SI prefix standing alone.
+fn ring_label(ring: f64) -> String {
+    const SUP: [char; 10] = ['⁰', '¹', '²', '³', '⁴', '⁵', '⁶', '⁷', '⁸', '⁹'];
+    let exp = ring.log10().round() as i64;
+    if exp <= 3 {
+        return format!("|L| = {}", ring.round());
+    }
+    let digits: String = exp
+        .to_string()
+        .chars()
+        .filter_map(|c| c.to_digit(10).map(|d| SUP[d as usize]))
+        .collect();
+    format!("|L| = 10{digits}")
+}
+
 /// The radius a loop gain of magnitude ρ is drawn at: ρ itself up to 1, then 1 + log10 ρ,
 /// so the unit circle and the −1 point keep their places and a trace that goes far out
 /// (a loop gain of 10⁵ at low frequency) stays on the page.
@@ -1198,7 +1240,7 @@ pub fn render_nyquist_svg(input: &NyquistPlot<'_>) -> Result<String, PlotError> 
             let r = nyquist_radius(ring);
             labels.reserve(
                 chart.backend_coord(&(r * 0.72, r * 0.72)),
-                &format!("|L| = {}", tidy_label(format_eng(ring, 3, "")).trim()),
+                &ring_label(ring),
                 14 * HI_I,
             );
             chart
@@ -1209,7 +1251,7 @@ pub fn render_nyquist_svg(input: &NyquistPlot<'_>) -> Result<String, PlotError> 
                 .map_err(perr)?;
             chart
                 .draw_series(std::iter::once(Text::new(
-                    format!("|L| = {}", tidy_label(format_eng(ring, 3, "")).trim()),
+                    ring_label(ring),
                     (r * 0.72, r * 0.72),
                     ("sans-serif", 14 * HI_I).into_font().color(&INK),
                 )))
