@@ -136,32 +136,29 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
         grid.describe()
     );
     let hz = |f: f64| format_eng(f, 5, "Hz");
+    let summary = ports::Summary::of(&pts, n);
     for (i, p) in list.iter().enumerate() {
         let rl: Vec<(f64, f64)> = pts
             .iter()
             .map(|q| (q.freq, ports::reflection(q.s[i * n + i]).return_loss_db))
             .collect();
-        let worst = rl
-            .iter()
+        let (worst_at, r) = summary
+            .worst_match
+            .get(i)
             .copied()
-            .min_by(|a, b| a.1.total_cmp(&b.1))
-            .unwrap_or((0.0, f64::NAN));
-        let r = ports::reflection(
-            pts.iter()
-                .find(|q| q.freq == worst.0)
-                .map_or(analyzer_core::ports::Complex::default(), |q| q.s[i * n + i]),
-        );
+            .flatten()
+            .unwrap_or((0.0, ports::reflection(Default::default())));
         let _ = writeln!(
             text,
             "\nport {} (z0 {}): worst return loss {} at {} (|Γ| {:.4}, VSWR {}, mismatch loss {:.3} dB)",
             p.name,
             format_eng(p.z0, 4, "Ω"),
-            if worst.1.is_finite() {
-                format!("{:.2} dB", worst.1)
+            if r.return_loss_db.is_finite() {
+                format!("{:.2} dB", r.return_loss_db)
             } else {
                 "∞ (matched)".into()
             },
-            hz(worst.0),
+            hz(worst_at),
             r.gamma,
             match r.vswr {
                 v if !v.is_finite() => "∞".into(),
@@ -304,23 +301,20 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
             );
         }
     }
-    let recip = pts
-        .iter()
-        .map(|p| ports::reciprocity_error(&p.s))
-        .fold(0.0, f64::max);
-    let sigma = pts
-        .iter()
-        .map(|p| ports::largest_singular_value(&p.s))
-        .fold(0.0, f64::max);
+    let (recip, sigma) = (summary.reciprocity_error, summary.largest_singular_value);
     let _ = writeln!(
         text,
         "\nreciprocity: max |Sij − Sji| = {recip:.2e}{}",
-        if recip < 1e-9 { " (reciprocal)" } else { "" }
+        if summary.reciprocal() {
+            " (reciprocal)"
+        } else {
+            ""
+        }
     );
     let _ = writeln!(
         text,
         "passivity: largest singular value of S = {sigma:.6}{}",
-        if sigma <= 1.0 + 1e-9 {
+        if summary.passive() {
             " (passive)"
         } else {
             " (above 1: the network gives out more power than it takes in)"

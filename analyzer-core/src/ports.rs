@@ -337,6 +337,56 @@ pub fn largest_singular_value(s: &[Complex64]) -> f64 {
         .unwrap_or(f64::NAN)
 }
 
+/// The figures a report shows of an N-port over a sweep: each port's worst match, the
+/// largest reciprocity error and the largest singular value of S (one computation for the
+/// `ports` command and the review page).
+#[derive(Clone, Debug, PartialEq)]
+pub struct Summary {
+    /// Per port (in port order): the frequency of its lowest return loss and its
+    /// reflection figures there; None for an empty sweep.
+    pub worst_match: Vec<Option<(f64, Reflection)>>,
+    /// The largest |S_ij − S_ji| over the sweep.
+    pub reciprocity_error: f64,
+    /// The largest singular value of S over the sweep.
+    pub largest_singular_value: f64,
+}
+
+impl Summary {
+    /// The summary of an `n`-port's sweep.
+    pub fn of(points: &[SPoint], n: usize) -> Summary {
+        let worst_match = (0..n)
+            .map(|i| {
+                points
+                    .iter()
+                    .filter_map(|q| q.s.get(i * n + i).map(|&g| (q.freq, reflection(g))))
+                    .min_by(|a, b| a.1.return_loss_db.total_cmp(&b.1.return_loss_db))
+            })
+            .collect();
+        Summary {
+            worst_match,
+            reciprocity_error: points
+                .iter()
+                .map(|q| reciprocity_error(&q.s))
+                .fold(0.0, f64::max),
+            largest_singular_value: points
+                .iter()
+                .map(|q| largest_singular_value(&q.s))
+                .fold(0.0, f64::max),
+        }
+    }
+
+    /// Reciprocal to rounding (largest |S_ij − S_ji| below 1e-9; common practice for a
+    /// numerical check).
+    pub fn reciprocal(&self) -> bool {
+        self.reciprocity_error < 1e-9
+    }
+
+    /// Passive to rounding (largest singular value of S at most 1 + 1e-9).
+    pub fn passive(&self) -> bool {
+        self.largest_singular_value <= 1.0 + 1e-9
+    }
+}
+
 /// ABCD of a two-port from its S with one real reference impedance `z0` on both ports
 /// (the usual conversion; it exists wherever S21 ≠ 0, also for a bare series element):
 /// A = ((1+S11)(1−S22) + S12S21)/(2S21), B = z0((1+S11)(1+S22) − S12S21)/(2S21),
@@ -541,5 +591,42 @@ impl NPort {
             worst_at_hz: best_f,
             worst_return_loss_db: best,
         }))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn point(freq: f64, s: [(f64, f64); 4]) -> SPoint {
+        SPoint {
+            freq,
+            s: s.iter().map(|&(re, im)| Complex64::new(re, im)).collect(),
+            ds: vec![Complex64::default(); 4],
+        }
+    }
+
+    #[test]
+    fn summary_picks_each_ports_worst_match_and_the_largest_errors() {
+        // At 1 and 2 MHz S is diagonal, so its singular values are the |S_ii| (closed
+        // form); at 3 MHz they are below 0.11 + 0.02. S11 = 0.5 gives a return loss of
+        // 20·log10 2 = 6.0206 dB and VSWR 3 (closed form).
+        let pts = [
+            point(1e6, [(0.2, 0.0), (0.0, 0.0), (0.0, 0.0), (0.0, -0.3)]),
+            point(2e6, [(0.0, 0.5), (0.0, 0.0), (0.0, 0.0), (0.1, 0.0)]),
+            point(3e6, [(0.1, 0.0), (0.02, 0.0), (0.0, 0.0), (0.1, 0.0)]),
+        ];
+        let s = Summary::of(&pts, 2);
+        let (f1, r1) = s.worst_match[0].unwrap();
+        assert_eq!(f1, 2e6);
+        assert!((r1.return_loss_db - 20.0 * 2f64.log10()).abs() < 1e-12);
+        assert!((r1.vswr - 3.0).abs() < 1e-12);
+        assert_eq!(s.worst_match[1].unwrap().0, 1e6);
+        // |S12 − S21| = 0.02 at 3 MHz only.
+        assert!((s.reciprocity_error - 0.02).abs() < 1e-15);
+        assert!(!s.reciprocal());
+        assert!((s.largest_singular_value - 0.5).abs() < 1e-12);
+        assert!(s.passive());
+        assert_eq!(Summary::of(&[], 2).worst_match, vec![None, None]);
     }
 }

@@ -924,12 +924,9 @@ pub fn ports_section(
     let n = list.len();
     let mut rows = Vec::new();
     let mut plots = Vec::new();
+    let summary = p::Summary::of(&pts, n);
     for (i, port) in list.iter().enumerate() {
-        let worst = pts
-            .iter()
-            .map(|q| (q.freq, p::reflection(q.s[i * n + i])))
-            .min_by(|a, b| a.1.return_loss_db.total_cmp(&b.1.return_loss_db));
-        if let Some((f, r)) = worst {
+        if let Some(Some((f, r))) = summary.worst_match.get(i) {
             rows.push((
                 format!("port {} (z0 {})", port.name, num(port.z0, 4, "Ω")),
                 format!(
@@ -939,7 +936,7 @@ pub fn ports_section(
                     } else {
                         "∞ (matched)".into()
                     },
-                    hz(f),
+                    hz(*f),
                     r.gamma,
                     if r.vswr.is_finite() {
                         format!("{:.3}", r.vswr)
@@ -966,14 +963,7 @@ pub fn ports_section(
             });
         }
     }
-    let recip = pts
-        .iter()
-        .map(|q| p::reciprocity_error(&q.s))
-        .fold(0.0, f64::max);
-    let sigma = pts
-        .iter()
-        .map(|q| p::largest_singular_value(&q.s))
-        .fold(0.0, f64::max);
+    let (recip, sigma) = (summary.reciprocity_error, summary.largest_singular_value);
     rows.push((
         "reciprocity".into(),
         format!("max |Sij − Sji| = {recip:.2e}"),
@@ -982,11 +972,7 @@ pub fn ports_section(
         "passivity".into(),
         format!(
             "largest singular value of S = {sigma:.6}{}",
-            if sigma <= 1.0 + 1e-9 {
-                " (passive)"
-            } else {
-                ""
-            }
+            if summary.passive() { " (passive)" } else { "" }
         ),
     ));
     let ev = nport.analysis().evaluator()?;
