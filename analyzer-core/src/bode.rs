@@ -22,6 +22,7 @@
 //! The document is written with no `id` attributes, no scripts and no external references, so
 //! several plots can be inlined in one HTML page.
 
+use crate::response::ResponseUnit;
 use crate::units::format_eng;
 use std::fmt::Write;
 
@@ -37,6 +38,24 @@ pub enum MagnitudeScale {
     /// at each end, plain-number ticks (the axis label carries the unit) and the zero line
     /// emphasised when it is in view.
     Level,
+}
+
+impl MagnitudeScale {
+    /// How a response of this unit is drawn, and its magnitude axis label: |Z| and |Y| on
+    /// log axes in Ω and S (in dB re 1 Ω or 1 S when `impedance_db`), everything else in dB.
+    pub fn of(unit: ResponseUnit, impedance_db: bool) -> (MagnitudeScale, String) {
+        match (unit, impedance_db) {
+            (ResponseUnit::Ohms, false) => (MagnitudeScale::Log("Ω"), "|Z| (Ω)".into()),
+            (ResponseUnit::Siemens, false) => (MagnitudeScale::Log("S"), "|Y| (S)".into()),
+            (ResponseUnit::Ohms, true) => (MagnitudeScale::Decibels, "|Z| (dB re 1 Ω)".into()),
+            (ResponseUnit::Siemens, true) => (MagnitudeScale::Decibels, "|Y| (dB re 1 S)".into()),
+            (ResponseUnit::NoiseDensity, _) => (
+                MagnitudeScale::Decibels,
+                "noise density (dB re 1 V/√Hz)".into(),
+            ),
+            (ResponseUnit::Ratio, _) => (MagnitudeScale::Decibels, "magnitude".into()),
+        }
+    }
 }
 
 /// Which panel a marker belongs to.
@@ -459,30 +478,41 @@ impl Frame {
     }
 }
 
-/// A label the placer has put somewhere.
-pub(crate) struct Placed {
+/// A label the placer has put somewhere, in the caller's colour type.
+pub(crate) struct Placed<C> {
     pub(crate) text: String,
     pub(crate) at: Boxed,
     pub(crate) point: (f64, f64),
-    pub(crate) colour: &'static str,
+    pub(crate) colour: C,
 }
 
-/// Puts each label next to its point where it overlaps no other label, no marked point and
-/// stays inside the panel, preferring places the traces do not pass through; a label with no
-/// free place is numbered at its point and listed under the plot.
-pub(crate) struct Placer {
-    pub(crate) placed: Vec<Placed>,
+/// A label with no free place: numbered at its point and listed under the plot.
+pub(crate) struct Footnote<C> {
+    pub(crate) number: usize,
+    pub(crate) text: String,
+    pub(crate) point: (f64, f64),
+    /// Whether the number itself was placed as a label (else it is drawn at the point).
+    pub(crate) number_placed: bool,
+    pub(crate) colour: C,
+}
+
+/// Puts each label next to its point where it overlaps no other label, no reserved box (a
+/// fixed text), no marked point and stays inside the panel, preferring places the traces do
+/// not pass through; a label with no free place becomes a [`Footnote`].
+pub(crate) struct Placer<C> {
+    pub(crate) placed: Vec<Placed<C>>,
+    reserved: Vec<Boxed>,
     pub(crate) points: Vec<(f64, f64)>,
-    /// (number, text, point, whether the number was placed as a label).
-    pub(crate) footnotes: Vec<(usize, String, (f64, f64), bool)>,
+    pub(crate) footnotes: Vec<Footnote<C>>,
     /// Font size of the labels (px).
-    pub(crate) font: f64,
+    font: f64,
 }
 
-impl Placer {
+impl<C: Copy> Placer<C> {
     pub(crate) fn new(font: f64) -> Self {
         Placer {
             placed: Vec::new(),
+            reserved: Vec::new(),
             points: Vec::new(),
             footnotes: Vec::new(),
             font,
@@ -491,17 +521,12 @@ impl Placer {
 
     /// Keeps labels off a box already drawn (fixed text).
     pub(crate) fn reserve(&mut self, at: Boxed) {
-        self.placed.push(Placed {
-            text: String::new(),
-            at,
-            point: (at.0, at.1),
-            colour: "",
-        });
+        self.reserved.push(at);
     }
 
-    /// The labels placed (not the reserved boxes).
-    pub(crate) fn labels(&self) -> impl Iterator<Item = &Placed> {
-        self.placed.iter().filter(|p| !p.text.is_empty())
+    /// Whether `b` overlaps a placed label or a reserved box.
+    pub(crate) fn taken(&self, b: &Boxed) -> bool {
+        self.placed.iter().any(|p| p.at.overlaps(b)) || self.reserved.iter().any(|r| r.overlaps(b))
     }
 
     pub(crate) fn place(
@@ -510,7 +535,7 @@ impl Placer {
         point: (f64, f64),
         within: Boxed,
         traces: &[(f64, f64)],
-        colour: &'static str,
+        colour: C,
     ) {
         match self.find(text, point, within, traces) {
             Some(b) => self.placed.push(Placed {
@@ -522,18 +547,23 @@ impl Placer {
             None => {
                 // Numbered at its point (the number placed like a label, where there is
                 // room) and listed under the plot.
-                let n = self.footnotes.len() + 1;
-                let number = self.find(&n.to_string(), point, within, traces);
-                if let Some(b) = number {
+                let number = self.footnotes.len() + 1;
+                let at = self.find(&number.to_string(), point, within, traces);
+                if let Some(b) = at {
                     self.placed.push(Placed {
-                        text: n.to_string(),
+                        text: number.to_string(),
                         at: b,
                         point,
                         colour,
                     });
                 }
-                self.footnotes
-                    .push((n, text.to_string(), point, number.is_some()));
+                self.footnotes.push(Footnote {
+                    number,
+                    text: text.to_string(),
+                    point,
+                    number_placed: at.is_some(),
+                    colour,
+                });
             }
         }
     }
@@ -563,7 +593,7 @@ impl Placer {
                 };
                 let b = Boxed(x, y, w, h);
                 if !b.inside(&within)
-                    || self.placed.iter().any(|p| p.at.overlaps(&b))
+                    || self.taken(&b)
                     || self.points.iter().any(|&(px, py)| {
                         Boxed(b.0 - 4.0, b.1 - 4.0, b.2 + 8.0, b.3 + 8.0).contains(px, py)
                     })
@@ -1051,7 +1081,7 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
         axis_y + 20.0
     );
     // Labels last, on a white ground, with a leader to their point.
-    for p in placer.labels() {
+    for p in &placer.placed {
         let Boxed(bx, by, bw, bh) = p.at;
         let (cx, cy) = (
             bx.max(p.point.0.min(bx + bw)),
@@ -1074,20 +1104,21 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
         );
     }
     let mut height = axis_y + 32.0;
-    for (n, text, point, number_placed) in &placer.footnotes {
-        if !number_placed {
+    for f in &placer.footnotes {
+        let (n, colour) = (f.number, f.colour);
+        if !f.number_placed {
             let _ = writeln!(
                 body,
-                r#"<text x="{:.1}" y="{:.1}" font-size="{LABEL_FONT}" font-weight="bold" fill="{MARK}">{n}</text>"#,
-                point.0 + 5.0,
-                point.1 - 5.0
+                r#"<text x="{:.1}" y="{:.1}" font-size="{LABEL_FONT}" font-weight="bold" fill="{colour}">{n}</text>"#,
+                f.point.0 + 5.0,
+                f.point.1 - 5.0
             );
         }
         let _ = writeln!(
             body,
-            r#"<text x="{left:.1}" y="{:.1}" font-size="{LABEL_FONT}" fill="{MARK}">{n}: {}</text>"#,
+            r#"<text x="{left:.1}" y="{:.1}" font-size="{LABEL_FONT}" fill="{colour}">{n}: {}</text>"#,
             height + 4.0,
-            escape(text)
+            escape(&f.text)
         );
         height += 18.0;
     }
@@ -1275,6 +1306,59 @@ mod tests {
         let h = heights(&[stop]);
         assert_eq!(h.len(), 1);
         assert!(h[0] > 3.0 * MASK_STRIP, "{h:?}");
+    }
+
+    #[test]
+    fn bands_shade_under_the_trace_and_a_level_axis_has_plain_ticks_and_its_zero_line() {
+        let mut s = line(100);
+        s.phase.clear();
+        let band = Band {
+            name: "spread".into(),
+            points: s
+                .magnitude
+                .iter()
+                .map(|&(f, v)| (f, v - 1.0, v + 1.0))
+                .collect(),
+            opacity: 0.3,
+        };
+        let series = [s];
+        let mut b = plot(&series, &[], &[]);
+        let bands = [band];
+        b.bands = &bands;
+        let svg = render(&b).unwrap();
+        assert!(
+            svg.contains(r#"fill-opacity="0.30" stroke="none""#),
+            "no band"
+        );
+        assert!(svg.contains(">spread</text>"), "no legend entry");
+        assert!(
+            !svg.contains(">phase<"),
+            "a series without phase has no phase panel"
+        );
+
+        // Sensitivity-like values through zero: plain numbers, zero line emphasised.
+        let level: Vec<(f64, f64)> = (0..50)
+            .map(|k| {
+                (
+                    10f64.powf(1.0 + 4.0 * k as f64 / 49.0),
+                    0.3 - 0.012 * k as f64,
+                )
+            })
+            .collect();
+        let series = [Series {
+            name: "R1".into(),
+            magnitude: level,
+            phase: Vec::new(),
+            delay: None,
+        }];
+        let mut b = plot(&series, &[], &[]);
+        b.scale = MagnitudeScale::Level;
+        let svg = render(&b).unwrap();
+        assert!(svg.contains(r#"stroke-width="1.4""#), "no zero line");
+        assert!(!svg.contains(" dB</text>"), "level ticks carry no unit");
+        let a = level_axis(-0.288, 0.3);
+        assert!(a.lo <= -0.288 && a.hi >= 0.3, "{a:?}");
+        assert!(a.ticks.iter().any(|t| t.1 == "0"), "{a:?}");
     }
 
     #[test]

@@ -405,12 +405,9 @@ const CHART_LABEL: i32 = 16 * HI_I;
 /// point, all stay inside the plotting area and off the traces where they can; a label with
 /// no room is numbered at its point and listed at the foot of the picture.
 struct ChartLabels {
-    placer: crate::bode::Placer,
+    placer: crate::bode::Placer<RGBColor>,
     within: crate::bode::Boxed,
     traces: Vec<(f64, f64)>,
-    /// Colours of the placed labels, then of the footnoted ones, in their order.
-    placed_colours: Vec<RGBColor>,
-    footnote_colours: Vec<RGBColor>,
 }
 
 impl ChartLabels {
@@ -426,8 +423,6 @@ impl ChartLabels {
                 d(area.1.end - area.1.start),
             ),
             traces: Vec::new(),
-            placed_colours: Vec::new(),
-            footnote_colours: Vec::new(),
         }
     }
 
@@ -438,28 +433,32 @@ impl ChartLabels {
         )
     }
 
-    /// Keeps labels off a text drawn at backend point `p` (top-left anchored) in font `size`.
-    fn reserve(&mut self, p: (i32, i32), text: &str, size: i32) {
+    /// The box (display px, 2 px of margin) of a text drawn at backend point `p`
+    /// (top-left anchored) in font `size`.
+    fn text_box(p: (i32, i32), text: &str, size: i32) -> crate::bode::Boxed {
         let (x, y) = Self::display(p);
         let h = shown_size(size);
-        self.placer.reserve(crate::bode::Boxed(
+        crate::bode::Boxed(
             x - 2.0,
             y - 2.0,
             crate::bode::text_width(text, h) + 4.0,
             h + 4.0,
-        ));
+        )
+    }
+
+    /// Keeps labels off a text drawn at backend point `p` in font `size`.
+    fn reserve(&mut self, p: (i32, i32), text: &str, size: i32) {
+        self.placer.reserve(Self::text_box(p, text, size));
     }
 
     /// Like [`ChartLabels::reserve`], but only when the text would overlap nothing kept
     /// clear so far; says whether it did (the caller draws the text only then).
     fn try_reserve(&mut self, p: (i32, i32), text: &str, size: i32) -> bool {
-        let (x, y) = Self::display(p);
-        let h = shown_size(size);
-        let b = crate::bode::Boxed(x, y, crate::bode::text_width(text, h), h);
-        if self.placer.placed.iter().any(|q| q.at.overlaps(&b)) {
+        let b = Self::text_box(p, text, size);
+        if self.placer.taken(&b) {
             return false;
         }
-        self.reserve(p, text, size);
+        self.placer.reserve(b);
         true
     }
 
@@ -482,15 +481,8 @@ impl ChartLabels {
             self.placer.points.push(Self::display(*p));
         }
         for (p, text, colour) in marks {
-            let at = Self::display(*p);
-            let (placed, footnoted) = (self.placer.placed.len(), self.placer.footnotes.len());
-            self.placer.place(text, at, self.within, &self.traces, "");
-            if self.placer.placed.len() > placed {
-                self.placed_colours.push(*colour);
-            }
-            if self.placer.footnotes.len() > footnoted {
-                self.footnote_colours.push(*colour);
-            }
+            self.placer
+                .place(text, Self::display(*p), self.within, &self.traces, *colour);
         }
     }
 
@@ -498,9 +490,7 @@ impl ChartLabels {
     fn draw(&self, root: &SvgArea<'_>, foot_y: f64) -> Result<(), PlotError> {
         let b = |v: f64| (v * f64::from(HI)).round() as i32;
         let font = ("sans-serif", CHART_LABEL).into_font();
-        let placed: Vec<&crate::bode::Placed> = self.placer.labels().collect();
-        for (k, p) in placed.iter().enumerate() {
-            let colour = self.placed_colours.get(k).copied().unwrap_or(INK);
+        for p in &self.placer.placed {
             let crate::bode::Boxed(bx, by, bw, bh) = p.at;
             let (cx, cy) = (
                 bx.max(p.point.0.min(bx + bw)),
@@ -509,7 +499,7 @@ impl ChartLabels {
             if (cx - p.point.0).hypot(cy - p.point.1) > 8.0 {
                 root.draw(&PathElement::new(
                     vec![(b(p.point.0), b(p.point.1)), (b(cx), b(cy))],
-                    colour.stroke_width(HI),
+                    p.colour.stroke_width(HI),
                 ))
                 .map_err(perr)?;
             }
@@ -521,24 +511,23 @@ impl ChartLabels {
             root.draw(&Text::new(
                 p.text.clone(),
                 (b(bx + 3.0), b(by + 2.0)),
-                font.clone().color(&colour),
+                font.clone().color(&p.colour),
             ))
             .map_err(perr)?;
         }
-        for (k, (n, text, point, number_placed)) in self.placer.footnotes.iter().enumerate() {
-            let colour = self.footnote_colours.get(k).copied().unwrap_or(MARK);
-            if !number_placed {
+        for f in &self.placer.footnotes {
+            if !f.number_placed {
                 root.draw(&Text::new(
-                    format!("{n}"),
-                    (b(point.0 + 5.0), b(point.1 - 18.0)),
-                    font.clone().color(&colour),
+                    f.number.to_string(),
+                    (b(f.point.0 + 5.0), b(f.point.1 - 18.0)),
+                    font.clone().color(&f.colour),
                 ))
                 .map_err(perr)?;
             }
             root.draw(&Text::new(
-                format!("{n}: {text}"),
-                (b(16.0), b(foot_y + 18.0 * (*n as f64 - 1.0))),
-                font.clone().color(&colour),
+                format!("{}: {}", f.number, f.text),
+                (b(16.0), b(foot_y + 18.0 * (f.number as f64 - 1.0))),
+                font.clone().color(&f.colour),
             ))
             .map_err(perr)?;
         }
@@ -865,8 +854,8 @@ mod tests {
 pub struct EnvelopePlot<'a> {
     /// Title line.
     pub title: String,
-    /// The response's unit symbol: "" for a ratio (drawn in dB), "Ω" or "S" (|Z| or |Y| on a
-    /// log axis, as the Bode plots draw them), anything else in dB re 1 unit.
+    /// The response's unit symbol ([`ResponseUnit::symbol`]), drawn as the Bode plots draw
+    /// that unit ([`crate::bode::MagnitudeScale::of`]); an unknown symbol in dB re 1 unit.
     pub unit: &'a str,
     /// The spread.
     pub envelope: &'a crate::spread::EnvelopeTraces,
@@ -892,11 +881,12 @@ pub fn render_envelope_svg(input: &EnvelopePlot<'_>) -> Result<String, PlotError
             "an envelope plot needs finite magnitudes at frequencies above 0 Hz".into(),
         ));
     };
-    let (scale, label) = match input.unit {
-        "" => (MagnitudeScale::Decibels, "magnitude (dB)".to_string()),
-        "Ω" => (MagnitudeScale::Log("Ω"), "|Z| (Ω)".to_string()),
-        "S" => (MagnitudeScale::Log("S"), "|Y| (S)".to_string()),
-        u => (MagnitudeScale::Decibels, format!("magnitude (dB re 1 {u})")),
+    let (scale, label) = match ResponseUnit::from_symbol(input.unit) {
+        Some(unit) => MagnitudeScale::of(unit, false),
+        None => (
+            MagnitudeScale::Decibels,
+            format!("magnitude (dB re 1 {})", input.unit),
+        ),
     };
     let band = |name: &str, lo: &[f64], hi: &[f64], opacity: f64| Band {
         name: name.into(),

@@ -129,6 +129,17 @@ impl ResponseUnit {
             ResponseUnit::NoiseDensity => "V/√Hz",
         }
     }
+    /// The unit whose [`ResponseUnit::symbol`] this is.
+    pub fn from_symbol(symbol: &str) -> Option<ResponseUnit> {
+        [
+            ResponseUnit::Ratio,
+            ResponseUnit::Ohms,
+            ResponseUnit::Siemens,
+            ResponseUnit::NoiseDensity,
+        ]
+        .into_iter()
+        .find(|u| u.symbol() == symbol)
+    }
     /// ASCII suffix for CSV column names ("" for a plain ratio).
     pub fn column_suffix(self) -> &'static str {
         match self {

@@ -198,19 +198,10 @@ pub fn masks(limits: &[Limit], name: &str) -> Vec<Mask> {
         .collect()
 }
 
-/// How a response of this unit is drawn, and its magnitude axis label.
+/// How a response of this unit is drawn, and its magnitude axis label
+/// ([`MagnitudeScale::of`] with the plot options).
 pub fn scale(unit: ResponseUnit, opts: PlotOptions) -> (MagnitudeScale, String) {
-    match (unit, opts.impedance_db) {
-        (ResponseUnit::Ohms, false) => (MagnitudeScale::Log("Ω"), "|Z| (Ω)".into()),
-        (ResponseUnit::Siemens, false) => (MagnitudeScale::Log("S"), "|Y| (S)".into()),
-        (ResponseUnit::Ohms, true) => (MagnitudeScale::Decibels, "|Z| (dB re 1 Ω)".into()),
-        (ResponseUnit::Siemens, true) => (MagnitudeScale::Decibels, "|Y| (dB re 1 S)".into()),
-        (ResponseUnit::NoiseDensity, _) => (
-            MagnitudeScale::Decibels,
-            "noise density (dB re 1 V/√Hz)".into(),
-        ),
-        (ResponseUnit::Ratio, _) => (MagnitudeScale::Decibels, "magnitude".into()),
-    }
+    MagnitudeScale::of(unit, opts.impedance_db)
 }
 
 /// One response of a sweep: what to overlay.
