@@ -289,11 +289,16 @@ impl Pencil {
                     *rv = rv.max(mag(self.a[k]) + mag(self.b[k]));
                 }
             }
-            for c in 0..m {
-                for (r, rv) in row.iter().enumerate() {
-                    let f = pow2(*rv);
-                    self.a[c * m + r] *= f;
-                    self.b[c * m + r] *= f;
+            for rv in row.iter_mut() {
+                *rv = pow2(*rv);
+            }
+            let mut changed = row.iter().any(|&f| f != 1.0);
+            if changed {
+                for c in 0..m {
+                    for (r, &f) in row.iter().enumerate() {
+                        self.a[c * m + r] *= f;
+                        self.b[c * m + r] *= f;
+                    }
                 }
             }
             for c in 0..m {
@@ -301,10 +306,17 @@ impl Pencil {
                     .map(|r| mag(self.a[c * m + r]) + mag(self.b[c * m + r]))
                     .fold(0.0, f64::max);
                 let f = pow2(col);
-                for r in 0..m {
-                    self.a[c * m + r] *= f;
-                    self.b[c * m + r] *= f;
+                if f != 1.0 {
+                    changed = true;
+                    for r in 0..m {
+                        self.a[c * m + r] *= f;
+                        self.b[c * m + r] *= f;
+                    }
                 }
+            }
+            // Scaling by 1 changes nothing: a pass that moved nothing ends the balancing.
+            if !changed {
+                break;
             }
         }
     }

@@ -116,11 +116,11 @@ impl Skeleton {
             let b = hi.min(shi / (2.0 * PI) * 10.0);
             if b > a {
                 let m = ((b / a).log10() * AUX_PER_DECADE).ceil().max(2.0) as usize;
-                let mut aux = Vec::with_capacity(m + 1);
-                for k in 0..=m {
-                    let f = a * (b / a).powf(k as f64 / m as f64);
-                    aux.push((f, probe.db(f)?));
-                }
+                let freqs: Vec<f64> = (0..=m)
+                    .map(|k| a * (b / a).powf(k as f64 / m as f64))
+                    .collect();
+                let dbs = probe.db_many(&freqs)?;
+                let aux: Vec<(f64, f64)> = freqs.into_iter().zip(dbs).collect();
                 for w in aux.windows(3) {
                     let (x, y, z) = (w[0], w[1], w[2]);
                     let peak = y.1 > x.1 && y.1 >= z.1;
@@ -141,10 +141,8 @@ impl Skeleton {
                 }
                 let scan = local_scan(f0, q, lo, hi);
                 let mut prev: Option<(f64, f64)> = None;
-                let mut slopes = Vec::with_capacity(scan.len());
-                for &f in &scan {
-                    slopes.push((f, probe.slope(f)?));
-                }
+                let slopes: Vec<(f64, f64)> =
+                    scan.iter().copied().zip(probe.slopes(&scan)?).collect();
                 for (k, &(f, s)) in slopes.iter().enumerate() {
                     if let Some((fp, sp)) = prev.replace((f, s)) {
                         if (sp > 0.0) != (s > 0.0) && sp != 0.0 && s != 0.0 {

@@ -873,6 +873,8 @@ pub struct Assessment {
     pub values: Vec<Vec<num_complex::Complex64>>,
     /// Each response's trace.
     pub traces: Vec<Trace>,
+    /// Each response's principal phase at each grid point (degrees, in (−180, 180]).
+    pub principal_deg: Vec<Vec<f64>>,
     /// Each response's figures.
     pub figures: Vec<Figures>,
     /// Each limit's outcome, in the order given (limits on responses the analysis does not
@@ -899,7 +901,14 @@ pub fn assess(
             v.push(pts[k * nr + r].value);
         }
     }
-    let traces: Vec<Trace> = values.iter().map(|v| Trace::from_values(v, None)).collect();
+    let (traces, principal_deg): (Vec<Trace>, Vec<Vec<f64>>) = values
+        .iter()
+        .map(|v| {
+            let mut t = Trace::new(false);
+            let polar = t.push(v, None);
+            (t, polar.principal_deg)
+        })
+        .unzip();
     let default = MetricOptions::default();
     let figures = (0..nr)
         .map(|r| response_figures(ev, grid, &traces[r], r, opts.get(r).unwrap_or(&default)))
@@ -913,6 +922,7 @@ pub fn assess(
     Ok(Assessment {
         values,
         traces,
+        principal_deg,
         figures,
         checks,
     })

@@ -270,6 +270,34 @@ impl<'e, 'a> Refiner<'e, 'a> {
         Ok(20.0 * v.get(self.index).map_or(0.0, |p| p.value.norm()).log10())
     }
 
+    /// Magnitude in dB at each of `freqs`, several frequencies per solver pass where the
+    /// solver path has a wide kernel (the values are those [`Refiner::db`] gives, bit for
+    /// bit). Fails with the first failing frequency's error, as one at a time would.
+    pub fn db_many(&mut self, freqs: &[Hertz]) -> Result<Vec<f64>, AnalysisError> {
+        self.solves += freqs.len();
+        let (nr, index) = (self.ev.analysis().responses().len(), self.index);
+        let pts = self.ev.at_many(&mut self.ws, freqs, false)?;
+        Ok((0..freqs.len())
+            .map(|k| {
+                let v = pts.get(k * nr + index).map_or(0.0, |p| p.value.norm());
+                20.0 * v.log10()
+            })
+            .collect())
+    }
+
+    /// [`Refiner::slope`] at each of `freqs`, several frequencies per solver pass (the same
+    /// bits as one at a time; the first failing frequency's error).
+    pub fn slopes(&mut self, freqs: &[Hertz]) -> Result<Vec<f64>, AnalysisError> {
+        self.solves += freqs.len();
+        let (nr, index) = (self.ev.analysis().responses().len(), self.index);
+        let pts = self.ev.at_many(&mut self.ws, freqs, true)?;
+        Ok(freqs
+            .iter()
+            .enumerate()
+            .map(|(k, &f)| log_slope(&pts.get(k * nr + index).copied().unwrap_or_default(), f))
+            .collect())
+    }
+
     /// Magnitude in dB at `f` and its derivative with respect to `ln f`:
     /// `d(dB)/d ln f = (20/ln 10)·Re(ω·H′/H)`.
     pub fn db_and_slope(&mut self, f: Hertz) -> Result<(f64, f64), AnalysisError> {

@@ -397,6 +397,10 @@ impl<'e, 'a> Study<'e, 'a> {
         if varied.is_empty() {
             return Err(SpreadError::NoTolerances);
         }
+        // The grid as a table of its points: the figures read grid frequencies many times
+        // per sample, and a log grid computes each with an exponential (same values).
+        let freqs = grid.points();
+        let grid = &Grid::List(freqs.clone());
         let nominal = metrics::assess(ev, grid, &opts, &limits)?;
         let followed = Followed::of(&nominal);
         let nominal_phase = nominal
@@ -407,7 +411,7 @@ impl<'e, 'a> Study<'e, 'a> {
         Ok(Study {
             ev,
             grid: grid.clone(),
-            freqs: grid.points(),
+            freqs,
             opts,
             limits,
             varied,
@@ -465,13 +469,13 @@ impl<'e, 'a> Study<'e, 'a> {
         match assessed {
             Ok(a) => {
                 let phase = a
-                    .values
+                    .principal_deg
                     .iter()
                     .zip(&self.nominal_phase)
                     .map(|(v, nom)| {
                         v.iter()
                             .zip(nom)
-                            .map(|(z, &p)| p + wrap180(z.arg().to_degrees() - p))
+                            .map(|(&z, &p)| p + wrap180(z - p))
                             .collect()
                     })
                     .collect();
