@@ -552,10 +552,12 @@ pub struct Evaluator<'a> {
 
 /// Per-thread scratch for an [`Evaluator`].
 pub struct Workspace<'a> {
-    /// One frequency per pass (single points, and the fallback that names a failure).
-    one: Box<dyn LaneSolver + 'a>,
-    /// Several frequencies per pass, where the solver path has such a kernel.
-    wide: Option<Box<dyn LaneSolver + 'a>>,
+    /// One frequency per pass (single points, and the fallback that names a failure); made
+    /// when first needed.
+    one: Option<Box<dyn LaneSolver + 'a>>,
+    /// Several frequencies per pass, where the solver path has such a kernel; made when
+    /// first needed (None until then, Some(None) on a path without one).
+    wide: Option<Option<Box<dyn LaneSolver + 'a>>>,
     /// Per excitation, the solutions of the current group, lane-major.
     xs: Vec<Vec<Complex64>>,
     /// Per excitation, their ω-derivatives.
@@ -588,19 +590,19 @@ impl<'a> Evaluator<'a> {
         self.analysis
     }
 
-    /// A workspace for one thread.
+    /// A workspace for one thread. Its solvers are made on first use (a study's many short
+    /// evaluations often need only one of the two).
     pub fn workspace(&self) -> Workspace<'a> {
         let a = self.analysis;
-        let one = self.plan.make_lanes(false);
-        // Only the stack kernel takes several frequencies per pass; a large system's second
-        // solver would be costly to make for nothing.
-        let wide = (self.plan.kind() == SolverKind::Small)
-            .then(|| self.plan.make_lanes(true))
-            .filter(|w| w.lanes() > 1);
-        let lanes = wide.as_ref().map_or(1, |w| w.lanes());
+        // Only the stack kernel takes several frequencies per pass.
+        let lanes = if self.plan.kind() == SolverKind::Small {
+            LANES
+        } else {
+            1
+        };
         Workspace {
-            one,
-            wide,
+            one: None,
+            wide: None,
             xs: vec![vec![Complex64::default(); a.sys.n * lanes]; a.rhs.len()],
             dxs: vec![vec![Complex64::default(); a.sys.n * lanes]; a.rhs.len()],
             points: vec![Point::default(); a.specs.len()],
@@ -608,6 +610,15 @@ impl<'a> Evaluator<'a> {
             noise_rhs: Vec::new(),
             ys: Vec::new(),
         }
+    }
+
+    /// The workspace's one-frequency solver, made on first use.
+    fn one<'w>(
+        &self,
+        one: &'w mut Option<Box<dyn LaneSolver + 'a>>,
+    ) -> &'w mut (dyn LaneSolver + 'a) {
+        one.get_or_insert_with(|| self.plan.make_lanes(false))
+            .as_mut()
     }
 
     /// The solution vector under the design's own sources from the last [`Evaluator::at`]
@@ -633,7 +644,7 @@ impl<'a> Evaluator<'a> {
         let nr = self.analysis.specs.len();
         ws.points.resize(nr, Point::default());
         let mut group = Group {
-            solver: ws.one.as_mut(),
+            solver: self.one(&mut ws.one),
             xs: &mut ws.xs,
             dxs: &mut ws.dxs,
             noise_rhs: &mut ws.noise_rhs,
@@ -655,13 +666,19 @@ impl<'a> Evaluator<'a> {
     ) -> Result<&'w [Point], AnalysisError> {
         let nr = self.analysis.specs.len();
         ws.points.resize(freqs.len() * nr, Point::default());
-        let lanes = ws.wide.as_ref().map_or(1, |w| w.lanes());
+        // A large system's second solver would be costly to make for nothing.
+        let wide = ws.wide.get_or_insert_with(|| {
+            (self.plan.kind() == SolverKind::Small)
+                .then(|| self.plan.make_lanes(true))
+                .filter(|w| w.lanes() > 1)
+        });
+        let lanes = wide.as_ref().map_or(1, |w| w.lanes());
         for (fs, out) in freqs
             .chunks(lanes)
             .zip(ws.points.chunks_mut(lanes * nr.max(1)))
         {
             if fs.len() > 1 {
-                if let Some(wide) = ws.wide.as_mut() {
+                if let Some(Some(wide)) = ws.wide.as_mut() {
                     let mut group = Group {
                         solver: wide.as_mut(),
                         xs: &mut ws.xs,
@@ -678,7 +695,7 @@ impl<'a> Evaluator<'a> {
             // One at a time: the fallback that finds which frequency failed, and why.
             for (k, &f) in fs.iter().enumerate() {
                 let mut group = Group {
-                    solver: ws.one.as_mut(),
+                    solver: self.one(&mut ws.one),
                     xs: &mut ws.xs,
                     dxs: &mut ws.dxs,
                     noise_rhs: &mut ws.noise_rhs,
@@ -836,7 +853,7 @@ impl<'a> Evaluator<'a> {
         };
         let n = a.sys.n;
         ws.ys.resize(n, Complex64::default());
-        ws.one
+        self.one(&mut ws.one)
             .solve_transposed_checked(&plan.output, &mut ws.ys)
             .map_err(|e| match e.failure {
                 SolveFailure::Singular(_) | SolveFailure::Untrustworthy { .. } => {
@@ -909,7 +926,7 @@ impl<'a> Evaluator<'a> {
             put(d, -den.inv());
         }
         ws.ys.resize(n, Complex64::default());
-        ws.one
+        self.one(&mut ws.one)
             .solve_transposed_checked(&w, &mut ws.ys)
             .map_err(|_| AnalysisError::Untrustworthy {
                 frequency: f,
@@ -989,7 +1006,9 @@ impl Resolved {
             Some(d) => d.eval(x, omega, design),
             None => Complex64::new(1.0, 0.0),
         };
-        let zero = |z: Complex64| z.norm() == 0.0 || !z.re.is_finite() || !z.im.is_finite();
+        // |z| = 0 exactly when both parts are (no square root needed to see it).
+        let zero =
+            |z: Complex64| (z.re == 0.0 && z.im == 0.0) || !z.re.is_finite() || !z.im.is_finite();
         if zero(den) || (self.invert && zero(num)) {
             return None;
         }
