@@ -731,3 +731,71 @@ impl<const N: usize, const L: usize> PointSolver for LaneLu<N, L> {
         y.store(rhs, 1);
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::network::NetworkBuilder;
+
+    /// A network whose pivot rows change with frequency: node a's column holds 1/R1 + jωC1
+    /// (growing with ω) on its own row and gm1 = 10 mS on node b's row (a transconductance
+    /// sensing a), so below ω ≈ gm1/C1 = 10⁴ rad/s the pivot is b's row and above it a's;
+    /// a second transconductance from c back into a makes fill. Lanes spread across that
+    /// crossover pivot differently, which is where the row masks take the union of two rows.
+    fn crossing_pivots() -> System {
+        let mut b = NetworkBuilder::new("pivots");
+        b.current_source("I1", "gnd", "a", Complex64::new(1e-3, 0.0))
+            .unwrap();
+        b.resistor("R1", "a", "gnd", 1e3).unwrap();
+        b.capacitor("C1", "a", "gnd", 1e-6).unwrap();
+        b.vccs("G1", ("gnd", "b"), ("a", "gnd"), 1e-2).unwrap();
+        b.resistor("R2", "b", "gnd", 1e3).unwrap();
+        b.resistor("R3", "b", "c", 1e3).unwrap();
+        b.capacitor("C2", "c", "gnd", 1e-8).unwrap();
+        b.vccs("G2", ("gnd", "a"), ("c", "gnd"), 2e-3).unwrap();
+        System::assemble(&b.build().unwrap())
+    }
+
+    /// With lanes pivoting on different rows, each lane still gives the one-lane kernel's
+    /// solution and derivative, and the solution satisfies the network's equations.
+    #[test]
+    fn lanes_that_pivot_differently_match_one_lane() {
+        let sys = crossing_pivots();
+        assert_eq!(sys.n, 3);
+        let omegas: Vec<f64> = (0..8)
+            .map(|k| 1e2 * 10f64.powf(k as f64 * 4.0 / 7.0))
+            .collect();
+        let mut wide = LaneLu::<3, 8>::new(&sys);
+        let mut one = LaneLu::<3, 1>::new(&sys);
+        let (mut xs, mut dxs) = (
+            vec![Complex64::default(); 24],
+            vec![Complex64::default(); 24],
+        );
+        LaneSolver::factor(&mut wide, &omegas).unwrap();
+        // The test is only worth its name if the lanes did pivot differently.
+        assert!(
+            wide.perm.iter().any(|p| *p != wide.perm[0]),
+            "{:?}",
+            wide.perm
+        );
+        wide.solve_checked(&sys.b, &mut xs).unwrap();
+        wide.derivative(&xs, &mut dxs);
+        for (l, &w) in omegas.iter().enumerate() {
+            let (mut x, mut dx) = (vec![Complex64::default(); 3], vec![Complex64::default(); 3]);
+            LaneSolver::factor(&mut one, &[w]).unwrap();
+            one.solve_checked(&sys.b, &mut x).unwrap();
+            one.derivative(&x, &mut dx);
+            assert_eq!(&xs[l * 3..(l + 1) * 3], &x[..], "lane {l}");
+            assert_eq!(&dxs[l * 3..(l + 1) * 3], &dx[..], "lane {l}");
+            // (G + jωC)·x = b to rounding.
+            let mut ax = vec![Complex64::default(); 3];
+            sys.multiply(w, &x, &mut ax, false);
+            for (u, v) in ax.iter().zip(&sys.b) {
+                assert!(
+                    (u - v).norm() <= 1e-12 * v.norm().max(1e-3),
+                    "lane {l}: {u} vs {v}"
+                );
+            }
+        }
+    }
+}
