@@ -702,28 +702,23 @@ impl SpreadState {
                 l.passed += u64::from(p && o.error.is_none());
             }
         }
-        for (k, f) in self.figures.iter_mut().enumerate() {
-            for o in block {
-                if let Some(&x) = o.scalars.get(k) {
-                    f.stat.add(x);
-                }
+        // Each statistic takes the block's values in one call (see `Stat::add_all`): the
+        // k-th statistic of a column gets element k of each outcome's vector `of(o)`.
+        let (mut xs, mut scratch) = (Vec::with_capacity(block.len()), Vec::new());
+        let mut column = |stats: &mut dyn Iterator<Item = &mut Stat>,
+                          of: &dyn Fn(&Outcome) -> Option<&Vec<f64>>| {
+            for (k, s) in stats.enumerate() {
+                xs.clear();
+                xs.extend(block.iter().filter_map(|o| of(o).and_then(|v| v.get(k))));
+                s.add_all(&xs, &mut scratch);
             }
-        }
+        };
+        column(&mut self.figures.iter_mut().map(|f| &mut f.stat), &|o| {
+            Some(&o.scalars)
+        });
         for (r, env) in self.responses.iter_mut().enumerate() {
-            for (k, s) in env.db.iter_mut().enumerate() {
-                for o in block {
-                    if let Some(&x) = o.db.get(r).and_then(|v| v.get(k)) {
-                        s.add(x);
-                    }
-                }
-            }
-            for (k, s) in env.phase.iter_mut().enumerate() {
-                for o in block {
-                    if let Some(&x) = o.phase.get(r).and_then(|v| v.get(k)) {
-                        s.add(x);
-                    }
-                }
-            }
+            column(&mut env.db.iter_mut(), &|o| o.db.get(r));
+            column(&mut env.phase.iter_mut(), &|o| o.phase.get(r));
         }
     }
 
