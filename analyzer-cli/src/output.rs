@@ -278,16 +278,14 @@ pub fn noise_svg(
         .into_iter()
         .collect();
     let plot = Bode {
-        title: format!("{title} — {}", spec.name),
-        range: (freqs[0], freqs[freqs.len() - 1]),
-        series: &series,
-        scale: MagnitudeScale::Log("V/√Hz"),
-        magnitude_label: label.into(),
-        wrapped: false,
         marks: &marks,
-        masks: &[],
-        bands: &[],
-        loop_gain: false,
+        ..Bode::new(
+            format!("{title} — {}", spec.name),
+            (freqs[0], freqs[freqs.len() - 1]),
+            &series,
+            MagnitudeScale::Log("V/√Hz"),
+            label.into(),
+        )
     };
     Ok(bode::render(&plot).ok())
 }

@@ -596,16 +596,15 @@ pub fn run_variants(args: &VariantsArgs) -> Result<u8, Failure> {
             let (scale, label) = plots::scale(spec.kind.unit(), PlotOptions::default());
             let lo = freqs.iter().copied().find(|f| *f > 0.0).unwrap_or(0.0);
             if let Ok(svg) = analyzer_core::bode::render(&analyzer_core::bode::Bode {
-                title: format!("{} — {}: variants", net.title, spec.name),
-                range: (lo, p.grid.bounds().1),
-                series: &series,
-                scale,
-                magnitude_label: label,
-                wrapped: false,
-                marks: &[],
                 masks: &masks,
-                bands: &[],
                 loop_gain: spec.loop_gain,
+                ..analyzer_core::bode::Bode::new(
+                    format!("{} — {}: variants", net.title, spec.name),
+                    (lo, p.grid.bounds().1),
+                    &series,
+                    scale,
+                    label,
+                )
             }) {
                 staging.bytes(
                     &p.out_dir.join(format!("{stem}-variants.svg")),

@@ -160,6 +160,31 @@ pub struct Bode<'a> {
     pub loop_gain: bool,
 }
 
+impl<'a> Bode<'a> {
+    /// A plot of `series` with nothing else drawn: phase unwrapped, no marks, limits or bands,
+    /// not a loop gain. Callers set the rest with struct update syntax.
+    pub fn new(
+        title: String,
+        range: (f64, f64),
+        series: &'a [Series],
+        scale: MagnitudeScale,
+        magnitude_label: String,
+    ) -> Self {
+        Bode {
+            title,
+            range,
+            series,
+            scale,
+            magnitude_label,
+            wrapped: false,
+            marks: &[],
+            masks: &[],
+            bands: &[],
+            loop_gain: false,
+        }
+    }
+}
+
 /// Why nothing could be drawn.
 #[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
 #[error("plot: {0}")]
@@ -1196,16 +1221,15 @@ mod tests {
 
     fn plot<'a>(s: &'a [Series], marks: &'a [Mark], masks: &'a [Mask]) -> Bode<'a> {
         Bode {
-            title: "test".into(),
-            range: (10.0, 1e5),
-            series: s,
-            scale: MagnitudeScale::Decibels,
-            magnitude_label: "magnitude (dB)".into(),
-            wrapped: false,
             marks,
             masks,
-            bands: &[],
-            loop_gain: false,
+            ..Bode::new(
+                "test".into(),
+                (10.0, 1e5),
+                s,
+                MagnitudeScale::Decibels,
+                "magnitude (dB)".into(),
+            )
         }
     }
 

@@ -905,16 +905,15 @@ pub fn render_envelope_svg(input: &EnvelopePlot<'_>) -> Result<String, PlotError
     }];
     let masks: Vec<Mask> = input.limits.iter().map(Mask::of).collect();
     crate::bode::render(&Bode {
-        title: input.title.clone(),
-        range: (e.freqs[first], e.freqs[last]),
-        series: &series,
-        scale,
-        magnitude_label: label,
-        wrapped: false,
-        marks: &[],
         masks: &masks,
         bands: &bands,
-        loop_gain: false,
+        ..Bode::new(
+            input.title.clone(),
+            (e.freqs[first], e.freqs[last]),
+            &series,
+            scale,
+            label,
+        )
     })
     .map_err(bode_error)
 }
@@ -959,18 +958,13 @@ pub fn render_lines_svg(input: &LinesPlot<'_>) -> Result<String, PlotError> {
             delay: None,
         })
         .collect();
-    crate::bode::render(&Bode {
-        title: input.title.clone(),
-        range: (f0, f1),
-        series: &series,
-        scale: MagnitudeScale::Level,
-        magnitude_label: input.label.clone(),
-        wrapped: false,
-        marks: &[],
-        masks: &[],
-        bands: &[],
-        loop_gain: false,
-    })
+    crate::bode::render(&Bode::new(
+        input.title.clone(),
+        (f0, f1),
+        &series,
+        MagnitudeScale::Level,
+        input.label.clone(),
+    ))
     .map_err(bode_error)
 }
 

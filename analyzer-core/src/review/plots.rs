@@ -257,16 +257,17 @@ pub fn bode_svg(
     let (scale, label) = scale(units[0], opts);
     let names: Vec<&str> = drawn.iter().map(|d| d.spec.name.as_str()).collect();
     let plot = Bode {
-        title: format!("{title} — {}", names.join(", ")),
-        range: (lo, grid.bounds().1),
-        series: &series,
-        scale,
-        magnitude_label: label,
         wrapped: opts.wrapped,
         marks: &all_marks,
         masks: &all_masks,
-        bands: &[],
         loop_gain: first.spec.loop_gain,
+        ..Bode::new(
+            format!("{title} — {}", names.join(", ")),
+            (lo, grid.bounds().1),
+            &series,
+            scale,
+            label,
+        )
     };
     bode::render(&plot).map(Some)
 }

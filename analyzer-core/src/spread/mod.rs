@@ -344,8 +344,8 @@ impl Outcome {
 /// A prepared tolerance study of one design.
 pub struct Study<'e, 'a> {
     ev: &'e Evaluator<'a>,
+    /// The sweep's grid as the table of its points.
     grid: Grid,
-    freqs: Vec<f64>,
     opts: Vec<MetricOptions>,
     limits: Vec<Limit>,
     varied: Vec<Varied>,
@@ -401,9 +401,8 @@ impl<'e, 'a> Study<'e, 'a> {
         }
         // The grid as a table of its points: the figures read grid frequencies many times
         // per sample, and a log grid computes each with an exponential (same values).
-        let freqs = grid.points();
-        let grid = &Grid::List(freqs.clone());
-        let nominal = metrics::assess(ev, grid, &opts, &limits)?;
+        let grid = Grid::List(grid.points());
+        let nominal = metrics::assess(ev, &grid, &opts, &limits)?;
         let followed = Followed::of(&nominal);
         let nominal_phase = nominal
             .values
@@ -412,8 +411,7 @@ impl<'e, 'a> Study<'e, 'a> {
             .collect();
         Ok(Study {
             ev,
-            grid: grid.clone(),
-            freqs,
+            grid,
             opts,
             limits,
             varied,
@@ -533,7 +531,7 @@ impl<'e, 'a> Study<'e, 'a> {
             samples,
             shards,
             shard_ids: vec![shard],
-            freqs: self.freqs.clone(),
+            freqs: self.grid.points(),
             parts: self.varied_names(),
             responses,
             figures: self
