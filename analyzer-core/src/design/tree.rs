@@ -19,7 +19,7 @@ use std::borrow::Cow;
 use std::ops::Range;
 use toml_parser::decoder::{Encoding, ScalarKind};
 use toml_parser::lexer::{Token, TokenKind};
-use toml_parser::parser::EventReceiver;
+use toml_parser::parser::{Event, EventKind, EventReceiver};
 use toml_parser::{ErrorSink, ParseError, Raw, Source, Span};
 
 /// A syntax or structure error, with the byte span it concerns.
@@ -319,7 +319,19 @@ impl<'d, 's> Value<'d, 's> {
     /// The scalar's decoded value, if it is one (decoding was checked while parsing).
     pub fn scalar(&self) -> Option<Scalar<'s>> {
         match *self {
-            Value::Scalar { doc, span, enc } => decode_scalar(doc.src, span, enc).ok(),
+            Value::Scalar { doc, span, enc } => {
+                // A one-line string without escapes is its own text between the quotes (its
+                // characters were checked when it was parsed): no decoder needed.
+                if let Some(Encoding::BasicString | Encoding::LiteralString) = enc {
+                    let raw = doc.src.get(span.range()).unwrap_or("");
+                    if let Some(inner) = raw.get(1..raw.len().saturating_sub(1)) {
+                        if raw.len() >= 2 && !inner.contains('\\') {
+                            return Some(Scalar::Str(Cow::Borrowed(inner)));
+                        }
+                    }
+                }
+                decode_scalar(doc.src, span, enc).ok()
+            }
             _ => None,
         }
     }
@@ -901,8 +913,120 @@ fn next_chunk(
     true
 }
 
-/// Sources at least this long are lexed on a second thread while they are parsed.
+/// Sources at least this long are lexed and parsed on a second thread while the events are
+/// assembled into the document.
 const PIPELINE_BYTES: usize = 1 << 20;
+
+/// Records, on the lexing thread, the events [`Builder`] acts on, for it to replay on its
+/// own thread; answers the parser's "may this be entered" as the builder would (the
+/// builder's frames are the top-level table and one per open inline table or array).
+struct Recorder {
+    events: Vec<Event>,
+    depth: usize,
+}
+
+impl Recorder {
+    fn push(&mut self, kind: EventKind, span: Span, enc: Option<Encoding>) {
+        self.events.push(Event::new_unchecked(kind, enc, span));
+    }
+    fn enter(&mut self, kind: EventKind, span: Span) -> bool {
+        self.push(kind, span, None);
+        if 1 + self.depth >= MAX_DEPTH {
+            return false;
+        }
+        self.depth += 1;
+        true
+    }
+}
+
+impl EventReceiver for Recorder {
+    fn std_table_open(&mut self, span: Span, _e: &mut dyn ErrorSink) {
+        self.push(EventKind::StdTableOpen, span, None);
+    }
+    fn array_table_open(&mut self, span: Span, _e: &mut dyn ErrorSink) {
+        self.push(EventKind::ArrayTableOpen, span, None);
+    }
+    fn std_table_close(&mut self, span: Span, _e: &mut dyn ErrorSink) {
+        self.push(EventKind::StdTableClose, span, None);
+        self.depth = 0;
+    }
+    fn array_table_close(&mut self, span: Span, _e: &mut dyn ErrorSink) {
+        self.push(EventKind::ArrayTableClose, span, None);
+        self.depth = 0;
+    }
+    fn inline_table_open(&mut self, span: Span, _e: &mut dyn ErrorSink) -> bool {
+        self.enter(EventKind::InlineTableOpen, span)
+    }
+    fn inline_table_close(&mut self, span: Span, _e: &mut dyn ErrorSink) {
+        self.push(EventKind::InlineTableClose, span, None);
+        self.depth = self.depth.saturating_sub(1);
+    }
+    fn array_open(&mut self, span: Span, _e: &mut dyn ErrorSink) -> bool {
+        self.enter(EventKind::ArrayOpen, span)
+    }
+    fn array_close(&mut self, span: Span, _e: &mut dyn ErrorSink) {
+        self.push(EventKind::ArrayClose, span, None);
+        self.depth = self.depth.saturating_sub(1);
+    }
+    fn simple_key(&mut self, span: Span, enc: Option<Encoding>, _e: &mut dyn ErrorSink) {
+        self.push(EventKind::SimpleKey, span, enc);
+    }
+    fn key_val_sep(&mut self, span: Span, _e: &mut dyn ErrorSink) {
+        self.push(EventKind::KeyValSep, span, None);
+    }
+    fn scalar(&mut self, span: Span, enc: Option<Encoding>, _e: &mut dyn ErrorSink) {
+        self.push(EventKind::Scalar, span, enc);
+    }
+    fn comment(&mut self, span: Span, _e: &mut dyn ErrorSink) {
+        self.push(EventKind::Comment, span, None);
+    }
+}
+
+impl Builder<'_, '_> {
+    /// Acts on recorded events as on the parser's own.
+    fn replay(&mut self, events: &[Event]) {
+        let e = &mut ();
+        for ev in events {
+            let (span, enc) = (ev.span(), ev.encoding());
+            match ev.kind() {
+                EventKind::StdTableOpen => self.std_table_open(span, e),
+                EventKind::ArrayTableOpen => self.array_table_open(span, e),
+                EventKind::StdTableClose => self.std_table_close(span, e),
+                EventKind::ArrayTableClose => self.array_table_close(span, e),
+                EventKind::InlineTableOpen => {
+                    let _ = self.inline_table_open(span, e);
+                }
+                EventKind::InlineTableClose => self.inline_table_close(span, e),
+                EventKind::ArrayOpen => {
+                    let _ = self.array_open(span, e);
+                }
+                EventKind::ArrayClose => self.array_close(span, e),
+                EventKind::SimpleKey => self.simple_key(span, enc, e),
+                EventKind::KeyValSep => self.key_val_sep(span, e),
+                EventKind::Scalar => self.scalar(span, enc, e),
+                EventKind::Comment => self.comment(span, e),
+                _ => {}
+            }
+        }
+    }
+
+    /// After a chunk: keeps the earlier of the parser's first error and the builder's own;
+    /// false once parsing must stop.
+    fn settle(&mut self, parse_errors: &[ParseError]) -> bool {
+        let end = self.doc.src.len();
+        if let Some(first) = parse_errors.first() {
+            let e = from_parse_error(first, end..end);
+            let earlier = self
+                .error
+                .as_ref()
+                .is_some_and(|x| x.span.start <= e.span.start);
+            if !earlier {
+                self.error = Some(e);
+            }
+        }
+        self.error.is_none() && !self.stopped
+    }
+}
 
 /// Parses a whole document, offering inline tables to `consumer` as they complete (see
 /// [`Consumer`]). Never panics; stops at the first error in the document, or when the
@@ -910,6 +1034,18 @@ const PIPELINE_BYTES: usize = 1 << 20;
 pub(crate) fn parse_with<'s>(
     src: &'s str,
     consumer: &mut dyn Consumer<'s>,
+) -> Result<Doc<'s>, Failure> {
+    let pipelined = src.len() >= PIPELINE_BYTES
+        && rayon::current_num_threads() > 1
+        && std::thread::available_parallelism().is_ok_and(|n| n.get() > 1);
+    parse_on(src, consumer, pipelined)
+}
+
+/// [`parse_with`], lexing and parsing on a second thread when `pipelined`.
+fn parse_on<'s>(
+    src: &'s str,
+    consumer: &mut dyn Consumer<'s>,
+    pipelined: bool,
 ) -> Result<Doc<'s>, Failure> {
     let mut b = Builder {
         consumer,
@@ -935,58 +1071,56 @@ pub(crate) fn parse_with<'s>(
         id: root,
         pending: None,
     });
-    let mut parse_errors: Vec<ParseError> = Vec::new();
-    // Parses one chunk of whole top-level lines (the tokens carry their spans in the whole
-    // source); false once parsing must stop.
-    let mut parse_chunk = |chunk: &[Token]| -> bool {
-        toml_parser::parser::parse_document(chunk, &mut b, &mut parse_errors);
-        if let Some(first) = parse_errors.first() {
-            let e = from_parse_error(first, src.len()..src.len());
-            let earlier = b
-                .error
-                .as_ref()
-                .is_some_and(|x| x.span.start <= e.span.start);
-            if !earlier {
-                b.error = Some(e);
-            }
-        }
-        b.error.is_none() && !b.stopped
-    };
     let mut lexer = Source::new(src).lex();
     let mut depth = 0;
-    let pipelined = src.len() >= PIPELINE_BYTES
-        && rayon::current_num_threads() > 1
-        && std::thread::available_parallelism().is_ok_and(|n| n.get() > 1);
     if pipelined {
-        // Lexing on a thread of its own, a few chunks ahead of the parse; chunk buffers go
-        // back to it for reuse. When the parse stops early, dropping the receiver ends it.
+        // Lexing and parsing on a thread of its own, a few chunks ahead of the assembly;
+        // the event lists go back to it for reuse. When the assembly stops early, dropping
+        // the receiver ends it.
+        type Parsed = (Vec<Event>, Vec<ParseError>);
         std::thread::scope(|scope| {
-            let (to_parser, from_lexer) = std::sync::mpsc::sync_channel::<Vec<Token>>(4);
-            let (to_lexer, spent) = std::sync::mpsc::channel::<Vec<Token>>();
-            scope.spawn(move || loop {
-                let mut chunk = spent
-                    .try_recv()
-                    .unwrap_or_else(|_| Vec::with_capacity(CHUNK_TOKENS + 4096));
-                chunk.clear();
-                let end = next_chunk(&mut lexer, &mut chunk, &mut depth);
-                if to_parser.send(chunk).is_err() || end {
-                    break;
+            let (to_builder, from_parser) = std::sync::mpsc::sync_channel::<Parsed>(4);
+            let (to_parser, spent) = std::sync::mpsc::channel::<Parsed>();
+            scope.spawn(move || {
+                let mut chunk = Vec::with_capacity(CHUNK_TOKENS + 4096);
+                let mut recorder = Recorder {
+                    events: Vec::new(),
+                    depth: 0,
+                };
+                loop {
+                    let (events, mut errors) = spent
+                        .try_recv()
+                        .unwrap_or_else(|_| (Vec::with_capacity(CHUNK_TOKENS), Vec::new()));
+                    recorder.events = events;
+                    recorder.events.clear();
+                    errors.clear();
+                    chunk.clear();
+                    let end = next_chunk(&mut lexer, &mut chunk, &mut depth);
+                    toml_parser::parser::parse_document(&chunk, &mut recorder, &mut errors);
+                    let events = std::mem::take(&mut recorder.events);
+                    let stop = !errors.is_empty();
+                    if to_builder.send((events, errors)).is_err() || end || stop {
+                        break;
+                    }
                 }
             });
-            for chunk in from_lexer.iter() {
-                if !parse_chunk(&chunk) {
+            for (events, errors) in from_parser.iter() {
+                b.replay(&events);
+                if !b.settle(&errors) {
                     break;
                 }
-                let _ = to_lexer.send(chunk);
+                let _ = to_parser.send((events, errors));
             }
-            drop(from_lexer);
+            drop(from_parser);
         });
     } else {
         let mut chunk = Vec::with_capacity(CHUNK_TOKENS.min(src.len() / 4 + 16));
+        let mut parse_errors: Vec<ParseError> = Vec::new();
         loop {
             chunk.clear();
             let end = next_chunk(&mut lexer, &mut chunk, &mut depth);
-            if !parse_chunk(&chunk) || end {
+            toml_parser::parser::parse_document(&chunk, &mut b, &mut parse_errors);
+            if !b.settle(&parse_errors) || end {
                 break;
             }
         }
@@ -1049,6 +1183,110 @@ mod tests {
             tree("[a.b]\nx = 1\n[a]\ny = 2\n").unwrap(),
             "{\"a\"={\"b\"={\"x\"=1},\"y\"=2}}"
         );
+    }
+
+    #[test]
+    fn strings_read_without_the_decoder_are_what_it_decodes() {
+        // toml_parser's decoder is the reference for every string form.
+        let src = r#"a = "10 k\u03a9"
+b = "1 kΩ"
+c = 'C:\x'
+d = ""
+e = ''
+f = """
+x"""
+g = "tab\there	and a tab"
+h = "a\\b"
+"#;
+        let d = parse(src).unwrap();
+        let mut n = 0;
+        for (k, v) in d.root().entries() {
+            let Value::Scalar { doc, span, enc } = v else {
+                panic!("{}", k.text)
+            };
+            let decoded = decode_scalar(doc.src, span, enc).unwrap();
+            assert_eq!(v.scalar(), Some(decoded), "{}", k.text);
+            n += 1;
+        }
+        assert_eq!(n, 8);
+        let Some(Scalar::Str(b)) = d.root().entries().nth(1).map(|(_, v)| v.scalar().unwrap())
+        else {
+            panic!()
+        };
+        assert!(matches!(b, Cow::Borrowed("1 kΩ")));
+    }
+
+    /// Takes the parts below `[parts]` whose number is even, and stops at `stop`.
+    struct TakeEven {
+        stop: &'static str,
+        taken: Vec<String>,
+    }
+
+    impl<'s> Consumer<'s> for TakeEven {
+        fn offer(&mut self, header: &[Cow<'s, str>], key: Key<'s>, value: Table<'_, 's>) -> Offer {
+            if key.text == self.stop {
+                return Offer::Stop;
+            }
+            let even = key.text[1..].parse::<usize>().is_ok_and(|k| k % 2 == 0);
+            if header != [Cow::Borrowed("parts")] || !even {
+                return Offer::Kept;
+            }
+            self.taken
+                .push(format!("{}{:?}{}", key.text, key.span, value.len()));
+            Offer::Taken
+        }
+    }
+
+    /// Parsing on a second thread (events recorded there, replayed here) gives the very
+    /// document, the very offers and the very first error of parsing in one thread, over
+    /// many chunks, with errors of the parser and of the assembly early, late and at depth.
+    #[test]
+    fn a_second_thread_changes_nothing() {
+        let mut big = String::from("title = \"t\" # c\n[parts]\n");
+        for k in 0..12000 {
+            big += &format!("R{k} = {{ resistor = \"{k}\", between = [\"a\",\n 'b'] }} # n\n");
+        }
+        let deep = format!("{}{}", "x = ".to_string() + &"[".repeat(70), "]".repeat(70));
+        let cases = [
+            big.clone(),
+            format!("{big}[sweep]\nfrom = 1\n"),
+            format!("{big}R17 = 2\n"),
+            format!("{big}R18 = {{ a = 1 }}\n"),
+            format!("{big}x = [1,\n"),
+            format!("{big}{deep}\n"),
+            format!("{deep}\n{big}"),
+            format!("a = 1\na = 2\n{big}"),
+            big.replace("R9000 =", "R9000 = = "),
+            big.replace("R11999 = {", "'R11999' = { \"a\\u0009b\" = 1,"),
+            big.replace("# n\n", "# n\u{7f}\n"),
+        ];
+        for (i, src) in cases.iter().enumerate() {
+            for stop in ["none", "R7001"] {
+                let run = |pipelined: bool| {
+                    let mut c = TakeEven {
+                        stop,
+                        taken: Vec::new(),
+                    };
+                    let doc =
+                        parse_on(src, &mut c, pipelined).map(|d| format!("{:?}", d.root().len()));
+                    let tree = match parse_on(src, &mut KeepAll, pipelined) {
+                        Ok(d) => format!("{:?} {:?}", d.tables, d.arrays),
+                        Err(e) => format!("{e:?}"),
+                    };
+                    (doc, c.taken, tree)
+                };
+                let (one, two) = (run(false), run(true));
+                assert_eq!(one.0, two.0, "case {i}, stop {stop}");
+                assert_eq!(one.1, two.1, "case {i}, stop {stop}");
+                assert!(one.2 == two.2, "case {i}, stop {stop}");
+            }
+        }
+        // The cases do reach the errors they were written for.
+        assert!(
+            format!("{:?}", parse_on(&cases[5], &mut KeepAll, true)).contains("nested too deeply")
+        );
+        assert!(format!("{:?}", parse_on(&cases[2], &mut KeepAll, true))
+            .contains("duplicate key `R17`"));
     }
 
     #[test]
