@@ -275,6 +275,9 @@ pub struct ResponseReadout<'a> {
     pub design: bool,
 }
 
+/// Parts from which [`Analysis::new`] checks the topology and assembles side by side.
+const PARALLEL_ASSEMBLY_PARTS: usize = 4096;
+
 /// A network with its assembled system and resolved responses, ready to be evaluated.
 #[derive(Clone, Debug)]
 pub struct Analysis {
@@ -291,6 +294,13 @@ impl Analysis {
     /// Assembles the network once and resolves each response. Checks the topology for
     /// ω > 0; [`Analysis::check_dc`] adds the checks for 0 Hz.
     pub fn new(net: Network, specs: Vec<ResponseSpec>) -> Result<Self, AnalysisError> {
+        // A large network is checked and assembled at once (independent passes over it).
+        if net.parts().len() >= PARALLEL_ASSEMBLY_PARTS {
+            let (checked, sys) =
+                rayon::join(|| topology::check(&net, false), || System::assemble(&net));
+            checked?;
+            return Self::with_system(net, sys, specs);
+        }
         topology::check(&net, false)?;
         Self::assemble(net, specs)
     }
@@ -309,6 +319,14 @@ impl Analysis {
 
     fn assemble(net: Network, specs: Vec<ResponseSpec>) -> Result<Self, AnalysisError> {
         let sys = System::assemble(&net);
+        Self::with_system(net, sys, specs)
+    }
+
+    fn with_system(
+        net: Network,
+        sys: System,
+        specs: Vec<ResponseSpec>,
+    ) -> Result<Self, AnalysisError> {
         let mut excitations: Vec<Excitation> = Vec::new();
         let mut slot = |e: Excitation| match excitations.iter().position(|x| *x == e) {
             Some(i) => i,
@@ -1035,6 +1053,35 @@ impl Resolved {
 mod tests {
     use super::*;
     use crate::network::NetworkBuilder;
+
+    /// A network large enough to be checked and assembled side by side gives the very
+    /// system of assembly alone, and the topology check's own error when it has a fault.
+    #[test]
+    fn large_networks_check_and_assemble_as_small_ones() {
+        let net = crate::ladders::rc_chain(PARALLEL_ASSEMBLY_PARTS / 2).unwrap();
+        assert!(net.parts().len() >= PARALLEL_ASSEMBLY_PARTS);
+        let a = Analysis::new(net.clone(), Vec::new()).unwrap();
+        let sys = System::assemble(&net);
+        assert_eq!(
+            (&a.system().pattern, &a.system().g, &a.system().c),
+            (&sys.pattern, &sys.g, &sys.c)
+        );
+        // A long chain with an island (two nodes joined only to each other).
+        let mut b = NetworkBuilder::new("chain with an island");
+        b.current_source("I1", "gnd", "n0", Complex64::new(1e-3, 0.0))
+            .unwrap();
+        for k in 1..PARALLEL_ASSEMBLY_PARTS {
+            let (a, z) = (format!("n{}", k - 1), format!("n{k}"));
+            b.resistor(&format!("R{k}"), &a, &z, 10.0).unwrap();
+            b.capacitor(&format!("C{k}"), &z, "gnd", 1e-9).unwrap();
+        }
+        b.capacitor("Cx", "island1", "island2", 1e-9).unwrap();
+        let faulty = b.build().unwrap();
+        assert!(faulty.parts().len() >= PARALLEL_ASSEMBLY_PARTS);
+        let expected = topology::check(&faulty, false).unwrap_err().to_string();
+        let got = Analysis::new(faulty, Vec::new()).unwrap_err().to_string();
+        assert_eq!(got, expected);
+    }
 
     /// A chain with exactly `n` node unknowns driven by a current source, read out as its
     /// input impedance (a test injection) and as a transfer ratio (the design's own source),

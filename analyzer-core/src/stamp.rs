@@ -109,6 +109,30 @@ fn idx(node: NodeId) -> Option<usize> {
     node.0.checked_sub(1)
 }
 
+/// Indices of `t` ordered by (column, row), entries of equal position in their order in
+/// `t`: a counting sort by column, then a stable sort by row within each column.
+fn column_major_order(t: &[(usize, usize, f64, f64)]) -> Vec<u32> {
+    let columns = t.iter().map(|e| e.1 + 1).max().unwrap_or(0);
+    let mut start = vec![0u32; columns + 1];
+    for e in t {
+        start[e.1 + 1] += 1;
+    }
+    for k in 0..columns {
+        start[k + 1] += start[k];
+    }
+    let mut order = vec![0u32; t.len()];
+    let mut next = start.clone();
+    for (i, e) in t.iter().enumerate() {
+        order[next[e.1] as usize] = i as u32;
+        next[e.1] += 1;
+    }
+    drop(next);
+    for k in 0..columns {
+        order[start[k] as usize..start[k + 1] as usize].sort_by_key(|&i| t[i as usize].0);
+    }
+    order
+}
+
 impl Stamper {
     fn g(&mut self, r: Option<usize>, c: Option<usize>, v: f64) {
         if let (Some(r), Some(c)) = (r, c) {
@@ -202,26 +226,34 @@ impl System {
             let k = sys.branch[i];
             stamp(&mut st, &sys, net, &part.kind, k, state[i]);
         }
-        // Sort by (column, row) and merge duplicates in place: the union pattern of G and
-        // C. The merged entries are then copied out at their exact size, so a large network
-        // touches no memory it does not keep (fresh pages cost the kernel's clearing).
-        let t = &mut st.triplets;
-        t.sort_unstable_by_key(|t| (t.1, t.0));
-        let mut kept = 0;
-        for i in 0..t.len() {
-            if kept > 0 && (t[kept - 1].0, t[kept - 1].1) == (t[i].0, t[i].1) {
-                t[kept - 1].2 += t[i].2;
-                t[kept - 1].3 += t[i].3;
+        // Order by (column, row) and merge duplicates: a counting sort by column, then each
+        // column's few entries by row, both stable, so the entries of one position are
+        // summed in the order the parts stamped them. Only a list of indices is sorted; the
+        // merged entries are written out at their exact size.
+        let t = std::mem::take(&mut st.triplets);
+        let order = column_major_order(&t);
+        let mut kept: Vec<(usize, usize)> = Vec::with_capacity(t.len());
+        let (mut g, mut c) = (Vec::with_capacity(t.len()), Vec::with_capacity(t.len()));
+        for &i in &order {
+            let (r, col, gv, cv) = t[i as usize];
+            if kept.last() == Some(&(r, col)) {
+                if let (Some(gl), Some(cl)) = (g.last_mut(), c.last_mut()) {
+                    *gl += gv;
+                    *cl += cv;
+                }
             } else {
-                t[kept] = t[i];
-                kept += 1;
+                kept.push((r, col));
+                g.push(gv);
+                c.push(cv);
             }
         }
-        t.truncate(kept);
-        sys.pattern = t.iter().map(|e| (e.0, e.1)).collect();
-        sys.g = t.iter().map(|e| e.2).collect();
-        sys.c = t.iter().map(|e| e.3).collect();
-        drop(st.triplets);
+        drop(t);
+        drop(order);
+        sys.pattern = kept;
+        sys.pattern.shrink_to_fit();
+        (sys.g, sys.c) = (g, c);
+        sys.g.shrink_to_fit();
+        sys.c.shrink_to_fit();
         for (k, &(r, c)) in sys.pattern.iter().enumerate() {
             if let Some(row) = sys.row_abs.get_mut(r) {
                 row.0 += sys.g[k].abs();
@@ -698,6 +730,40 @@ fn stamp(
 mod tests {
     use super::*;
     use crate::network::NetworkBuilder;
+
+    /// Column-major order, rows ascending within a column, and entries of one position in
+    /// the order they were stamped (so their sum does not depend on a sort's internals).
+    #[test]
+    fn entries_order_by_column_then_row_keeping_stamp_order() {
+        let t: Vec<(usize, usize, f64, f64)> = [
+            (2, 1, 0.0),
+            (0, 1, 1.0),
+            (2, 1, 2.0),
+            (1, 0, 3.0),
+            (0, 3, 4.0),
+            (2, 1, 5.0),
+            (0, 0, 6.0),
+            (1, 1, 7.0),
+        ]
+        .iter()
+        .map(|&(r, c, v)| (r, c, v, 0.0))
+        .collect();
+        let order: Vec<f64> = column_major_order(&t)
+            .iter()
+            .map(|&i| t[i as usize].2)
+            .collect();
+        assert_eq!(order, [6.0, 3.0, 1.0, 7.0, 0.0, 2.0, 5.0, 4.0]);
+        assert!(column_major_order(&[]).is_empty());
+        // A column far longer than a row's handful (a node shared by many parts).
+        let star: Vec<(usize, usize, f64, f64)> = (0..5000)
+            .map(|k| ((7919 * k) % 5000, 0, k as f64, 0.0))
+            .collect();
+        let rows: Vec<usize> = column_major_order(&star)
+            .iter()
+            .map(|&i| star[i as usize].0)
+            .collect();
+        assert!(rows.windows(2).all(|w| w[0] < w[1]));
+    }
 
     fn dense(sys: &System, omega: f64) -> Vec<Complex64> {
         let mut a = vec![Complex64::default(); sys.n * sys.n];

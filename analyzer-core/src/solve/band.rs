@@ -165,20 +165,14 @@ impl BandLayout {
 }
 
 /// Banded LU with partial pivoting at one frequency, with its own band storage.
-///
-/// Row i of the working band is kept in two arrays: `low` holds columns i − kl ..= i − 1
-/// (where L's multipliers end up) and `up` columns i ..= i + ku + kl (U's row, its diagonal
-/// replaced by the reciprocal once the row is final). A solve streams each array once, so
-/// the forward pass reads only the multipliers, not whole rows: on a long line the solve is
-/// limited by memory traffic, which this halves.
 pub struct BandLu {
     layout: Arc<BandLayout>,
-    /// `kl` entries per row: columns i − kl ..= i − 1 at offsets 0 ..= kl − 1.
-    low: Vec<Complex64>,
-    /// `kl + ku + 1` entries per row: columns i ..= i + ku + kl; offset 0 holds 1/U(i, i).
-    up: Vec<Complex64>,
+    /// Row-major band: row i holds columns i − kl ..= i + ku + kl.
+    ab: Vec<Complex64>,
     /// Row interchanged with row k at step k.
     ipiv: Vec<usize>,
+    /// 1/U(k, k).
+    inv_diag: Vec<Complex64>,
     /// Vectors in the band's order.
     work: Vec<Complex64>,
     work2: Vec<Complex64>,
@@ -188,11 +182,11 @@ pub struct BandLu {
 impl BandLu {
     /// A solver with its own band storage for a system laid out by `layout`.
     pub fn new(layout: Arc<BandLayout>) -> Self {
-        let (n, kl, ku) = (layout.n, layout.kl, layout.ku);
+        let n = layout.n;
         BandLu {
-            low: vec![Complex64::default(); n * kl],
-            up: vec![Complex64::default(); n * (kl + ku + 1)],
+            ab: vec![Complex64::default(); n * layout.width()],
             ipiv: vec![0; n],
+            inv_diag: vec![Complex64::default(); n],
             work: vec![Complex64::default(); n],
             work2: vec![Complex64::default(); n],
             layout,
@@ -226,27 +220,26 @@ impl PointSolver for BandLu {
             ref g,
             ref c,
         } = *self.layout;
-        let (wa, wu) = (kl + ku + 1, kl + ku + 1);
+        let (w, wa) = (2 * kl + ku + 1, kl + ku + 1);
         self.ok = false;
-        let (low, up) = (&mut self.low, &mut self.up);
         // Row i of G + jωC goes into the band (with zeros where pivoting may fill in) just
         // before step i − kl first reads it, while the band's neighbourhood is in cache.
-        let fill = |low: &mut [Complex64], up: &mut [Complex64], i: usize| {
-            let (l, u, gr, cr) = (
-                &mut low[i * kl..(i + 1) * kl],
-                &mut up[i * wu..(i + 1) * wu],
+        let fill = |ab: &mut [Complex64], i: usize| {
+            let (row, gr, cr) = (
+                &mut ab[i * w..(i + 1) * w],
                 &g[i * wa..(i + 1) * wa],
                 &c[i * wa..(i + 1) * wa],
             );
-            let (u, rest) = u.split_at_mut(ku + 1);
-            for (v, (&g, &c)) in l.iter_mut().chain(u.iter_mut()).zip(gr.iter().zip(cr)) {
+            let (a, rest) = row.split_at_mut(wa);
+            for ((v, &g), &c) in a.iter_mut().zip(gr).zip(cr) {
                 *v = Complex64::new(g, omega * c);
             }
             rest.fill(Complex64::default());
         };
         for i in 0..kl.min(n) {
-            fill(low, up, i);
+            fill(&mut self.ab, i);
         }
+        let ab = &mut self.ab;
         let blame = |k: usize| Singular {
             column: order.get(k).copied().unwrap_or(k),
         };
@@ -255,15 +248,14 @@ impl PointSolver for BandLu {
         for k in 0..n {
             let last_row = (k + kl).min(n - 1);
             if k + kl < n {
-                fill(low, up, k + kl);
+                fill(ab, k + kl);
             }
             // Pivot: the largest |Re| + |Im| in column k on or below the diagonal (a NaN on
-            // the diagonal stays the pivot and is reported). Column k of row i > k sits in
-            // `low` at offset k + kl − i.
-            let d = up[k * wu];
+            // the diagonal stays the pivot and is reported).
+            let d = ab[k * w + kl];
             let (mut p, mut best) = (k, d.re.abs() + d.im.abs());
             for i in k + 1..=last_row {
-                let v = low[i * kl + k + kl - i];
+                let v = ab[i * w + k + kl - i];
                 let m = v.re.abs() + v.im.abs();
                 if m > best {
                     (p, best) = (i, m);
@@ -276,39 +268,24 @@ impl PointSolver for BandLu {
             ju = ju.max((p + ku).min(n - 1));
             if p != k {
                 for j in k..=ju {
-                    let mine = up[k * wu + j - k];
-                    let theirs = if j < p {
-                        &mut low[p * kl + j + kl - p]
-                    } else {
-                        &mut up[p * wu + j - p]
-                    };
-                    up[k * wu + j - k] = std::mem::replace(theirs, mine);
+                    ab.swap(k * w + j + kl - k, p * w + j + kl - p);
                 }
             }
-            let inv = recip(up[k * wu]);
-            up[k * wu] = inv;
-            let (upper, lower) = up.split_at_mut((k + 1) * wu);
-            let pivot_row = &upper[k * wu..k * wu + (ju - k) + 1];
+            let inv = recip(ab[k * w + kl]);
+            self.inv_diag[k] = inv;
+            let (upper, lower) = ab.split_at_mut((k + 1) * w);
+            let pivot_row = &upper[k * w + kl..k * w + kl + (ju - k) + 1];
             for i in k + 1..=last_row {
-                let (l, u) = (
-                    &mut low[i * kl..(i + 1) * kl],
-                    &mut lower[(i - k - 1) * wu..(i - k) * wu],
-                );
+                let row = &mut lower[(i - k - 1) * w..(i - k) * w];
                 let at = k + kl - i;
-                let m = l[at] * inv;
-                l[at] = m;
+                let m = row[at] * inv;
+                row[at] = m;
                 if m.re == 0.0 && m.im == 0.0 {
                     continue;
                 }
-                // Columns k + 1 ..= i − 1 are in `low` from offset at + 1, columns
-                // i ..= ju in `u` from offset 0.
-                let rest = &pivot_row[1..];
-                let (to_low, to_up) = rest.split_at((i - k - 1).min(rest.len()));
-                for (x, &v) in l[at + 1..].iter_mut().zip(to_low) {
-                    *x -= m * v;
-                }
-                for (x, &v) in u.iter_mut().zip(to_up) {
-                    *x -= m * v;
+                // Columns k + 1 ..= ju of row i start at offset at + 1.
+                for (x, &u) in row[at + 1..=at + (ju - k)].iter_mut().zip(&pivot_row[1..]) {
+                    *x -= m * u;
                 }
             }
         }
@@ -327,8 +304,8 @@ impl PointSolver for BandLu {
         if !self.ok || rhs.len() != n {
             return;
         }
-        let wu = kl + ku + 1;
-        let (low, up, y) = (&self.low, &self.up, &mut self.work);
+        let w = 2 * kl + ku + 1;
+        let (ab, y) = (&self.ab, &mut self.work);
         for (v, &old) in y.iter_mut().zip(order) {
             *v = rhs[old];
         }
@@ -346,18 +323,18 @@ impl PointSolver for BandLu {
             // Column k's multipliers sit in rows k + 1 ..= k + kl, one slot further left in
             // each row.
             for (t, yi) in tail.iter_mut().take(kl).enumerate() {
-                *yi -= low[(k + 1 + t) * kl + kl - 1 - t] * yk;
+                *yi -= ab[(k + 1 + t) * w + kl - 1 - t] * yk;
             }
         }
-        // U: back substitution over the widened upper band (1/U(k, k) at offset 0).
+        // U: back substitution over the widened upper band (diagonal at offset kl).
         for k in (0..n).rev() {
-            let row = &up[k * wu..(k + 1) * wu];
+            let row = &ab[k * w + kl..(k + 1) * w];
             let (head, tail) = y.split_at_mut(k + 1);
             let mut s = head[k];
             for (u, &yj) in row[1..].iter().zip(tail.iter()) {
                 s -= u * yj;
             }
-            head[k] = s * row[0];
+            head[k] = s * self.inv_diag[k];
         }
         for (&v, &old) in y.iter().zip(order) {
             rhs[old] = v;
@@ -378,24 +355,25 @@ impl PointSolver for BandLu {
         if !self.ok || rhs.len() != n {
             return;
         }
-        let wu = kl + ku + 1;
-        let (low, up, y) = (&self.low, &self.up, &mut self.work);
+        let w = 2 * kl + ku + 1;
+        let (ab, y) = (&self.ab, &mut self.work);
         for (v, &old) in y.iter_mut().zip(order) {
             *v = rhs[old];
         }
-        // Uᵀ: column k of U, rows k − (kl + ku) ..= k − 1, is U(j, k) at row j, offset k − j.
+        // Uᵀ: column k of U, rows k − (kl + ku) ..= k − 1, is U(j, k) at row j, offset
+        // kl + (k − j).
         for k in 0..n {
             let mut s = y[k];
             for j in k.saturating_sub(kl + ku)..k {
-                s -= up[j * wu + (k - j)] * y[j];
+                s -= ab[j * w + kl + (k - j)] * y[j];
             }
-            y[k] = s * up[k * wu];
+            y[k] = s * self.inv_diag[k];
         }
         // Lᵀ: the multipliers of column k sit in rows k + 1 ..= k + kl.
         for k in (0..n).rev() {
             let mut s = y[k];
             for t in 0..kl.min(n - 1 - k) {
-                s -= low[(k + 1 + t) * kl + kl - 1 - t] * y[k + 1 + t];
+                s -= ab[(k + 1 + t) * w + kl - 1 - t] * y[k + 1 + t];
             }
             y[k] = s;
             let p = self.ipiv[k];
