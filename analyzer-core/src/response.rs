@@ -19,6 +19,7 @@ use crate::stamp::{Readout, System};
 use crate::topology::{self, TopologyError};
 use crate::units::{format_eng, Hertz};
 use num_complex::Complex64;
+use rayon::prelude::*;
 use std::f64::consts::PI;
 
 /// One side of a ratio.
@@ -274,6 +275,10 @@ pub struct ResponseReadout<'a> {
     /// Whether the excitation is the design's own sources (read-out constants apply).
     pub design: bool,
 }
+
+/// Unknowns from which [`Evaluator::at_many`] solves its frequencies on several threads (a
+/// solve then takes milliseconds, more than making a second workspace).
+const PARALLEL_PROBE_UNKNOWNS: usize = 20_000;
 
 /// Parts from which [`Analysis::new`] checks the topology and assembles side by side.
 const PARALLEL_ASSEMBLY_PARTS: usize = 4096;
@@ -683,7 +688,49 @@ impl<'a> Evaluator<'a> {
         derivatives: bool,
     ) -> Result<&'w [Point], AnalysisError> {
         let nr = self.analysis.specs.len();
-        ws.points.resize(freqs.len() * nr, Point::default());
+        // Taken out while the solvers fill it, so the workspace lends them its vectors.
+        let mut points = std::mem::take(&mut ws.points);
+        points.resize(freqs.len() * nr, Point::default());
+        let solved = self.fill_many(ws, freqs, derivatives, &mut points);
+        ws.points = points;
+        solved?;
+        Ok(&ws.points)
+    }
+
+    /// [`Evaluator::at_many`]'s work, into `points` (taken out of the workspace).
+    fn fill_many(
+        &self,
+        ws: &mut Workspace<'a>,
+        freqs: &[Hertz],
+        derivatives: bool,
+        points: &mut [Point],
+    ) -> Result<(), AnalysisError> {
+        let nr = self.analysis.specs.len();
+        let threads = rayon::current_num_threads();
+        if freqs.len() > 1
+            && threads > 1
+            && self.plan.kind() != SolverKind::Small
+            && self.analysis.sys.n >= PARALLEL_PROBE_UNKNOWNS
+        {
+            // A large system: the frequencies are shared among the threads, this workspace
+            // taking the first share and a workspace of its own each of the others.
+            let per = freqs.len().div_ceil(threads);
+            let (mine, rest) = freqs.split_at(per);
+            let (head, tail) = points.split_at_mut(per * nr);
+            let (first, others) = rayon::join(
+                || self.one_by_one(ws, mine, derivatives, head),
+                || {
+                    rest.par_chunks(per)
+                        .zip(tail.par_chunks_mut(per * nr))
+                        .map(|(fs, out)| {
+                            self.one_by_one(&mut self.workspace(), fs, derivatives, out)
+                        })
+                        .collect::<Vec<_>>()
+                },
+            );
+            // The first failure in the order of `freqs`.
+            return std::iter::once(first).chain(others).collect();
+        }
         // A large system's second solver would be costly to make for nothing.
         let wide = ws.wide.get_or_insert_with(|| {
             (self.plan.kind() == SolverKind::Small)
@@ -693,7 +740,7 @@ impl<'a> Evaluator<'a> {
         let lanes = wide.as_ref().map_or(1, |w| w.lanes());
         for (fs, out) in freqs
             .chunks(lanes)
-            .zip(ws.points.chunks_mut(lanes * nr.max(1)))
+            .zip(points.chunks_mut(lanes * nr.max(1)))
         {
             if fs.len() > 1 {
                 if let Some(Some(wide)) = ws.wide.as_mut() {
@@ -711,19 +758,33 @@ impl<'a> Evaluator<'a> {
                 }
             }
             // One at a time: the fallback that finds which frequency failed, and why.
-            for (k, &f) in fs.iter().enumerate() {
-                let mut group = Group {
-                    solver: self.one(&mut ws.one),
-                    xs: &mut ws.xs,
-                    dxs: &mut ws.dxs,
-                    noise_rhs: &mut ws.noise_rhs,
-                    ys: &mut ws.ys,
-                };
-                let slot = out.get_mut(k * nr..(k + 1) * nr).unwrap_or_default();
-                self.eval_group(&mut group, &[f], derivatives, slot)?;
-            }
+            self.one_by_one(ws, fs, derivatives, out)?;
         }
-        Ok(&ws.points)
+        Ok(())
+    }
+
+    /// Every response at each of `freqs`, one frequency at a time, into `out`
+    /// (point-major); fails with the first failing frequency's error.
+    fn one_by_one(
+        &self,
+        ws: &mut Workspace<'a>,
+        freqs: &[Hertz],
+        derivatives: bool,
+        out: &mut [Point],
+    ) -> Result<(), AnalysisError> {
+        let nr = self.analysis.specs.len();
+        for (k, &f) in freqs.iter().enumerate() {
+            let mut group = Group {
+                solver: self.one(&mut ws.one),
+                xs: &mut ws.xs,
+                dxs: &mut ws.dxs,
+                noise_rhs: &mut ws.noise_rhs,
+                ys: &mut ws.ys,
+            };
+            let slot = out.get_mut(k * nr..(k + 1) * nr).unwrap_or_default();
+            self.eval_group(&mut group, &[f], derivatives, slot)?;
+        }
+        Ok(())
     }
 
     /// Evaluates every response at `freqs` (at most the solver's lane count) into `out`
@@ -1053,6 +1114,44 @@ impl Resolved {
 mod tests {
     use super::*;
     use crate::network::NetworkBuilder;
+
+    /// On a large system the frequencies of one call are shared among threads: every
+    /// value is the very one a call per frequency gives, and a failure is the first
+    /// frequency's (in the order given) to fail, whichever thread met it.
+    #[test]
+    fn large_systems_share_frequencies_among_threads_and_change_nothing() {
+        let a = chain(PARALLEL_PROBE_UNKNOWNS);
+        let ev = a.evaluator().unwrap();
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(2)
+            .build()
+            .unwrap();
+        let bad = f64::INFINITY;
+        let mut ws = ev.workspace();
+        assert!(ev.at(&mut ws, bad, false).is_err());
+        let good = [3e2, 1e4, 7e5, 2e6, 3e7];
+        for derivatives in [false, true] {
+            let one: Vec<Point> = good
+                .iter()
+                .flat_map(|&f| ev.at(&mut ev.workspace(), f, derivatives).unwrap().to_vec())
+                .collect();
+            let many = pool.install(|| {
+                assert_eq!(rayon::current_num_threads(), 2);
+                ev.at_many(&mut ws, &good, derivatives).unwrap().to_vec()
+            });
+            assert_eq!(many, one);
+        }
+        for freqs in [
+            vec![1e3, 2e3, bad, 5e3],
+            vec![bad, 1e3, 2e3],
+            vec![1e3, 2e3, 4e3, bad],
+        ] {
+            let k = freqs.iter().position(|&f| f == bad).unwrap();
+            let expected = ev.at(&mut ev.workspace(), freqs[k], false).unwrap_err();
+            let got = pool.install(|| ev.at_many(&mut ws, &freqs, false).unwrap_err());
+            assert_eq!(got.to_string(), expected.to_string(), "{freqs:?}");
+        }
+    }
 
     /// A network large enough to be checked and assembled side by side gives the very
     /// system of assembly alone, and the topology check's own error when it has a fault.

@@ -109,21 +109,42 @@ pub(super) fn plan(
         .map_or(range, |(lo, hi)| (lo / (2.0 * PI), hi / (2.0 * PI)));
     let (slope_lo, slope_hi) = match pz {
         Some(p) if !p.identically_zero => (Some(p.slope_at_dc()), Some(p.slope_at_infinity())),
-        _ => (
-            rounded(probe.slope(range.0 * 10f64.powf(-SLOPE_DECADES))?),
-            rounded(probe.slope(range.1 * 10f64.powf(SLOPE_DECADES))?),
-        ),
+        _ => {
+            // Both ends in one call (a large system solves them side by side).
+            let s = probe.slopes(&[
+                range.0 * 10f64.powf(-SLOPE_DECADES),
+                range.1 * 10f64.powf(SLOPE_DECADES),
+            ])?;
+            (
+                s.first().copied().and_then(rounded),
+                s.get(1).copied().and_then(rounded),
+            )
+        }
     };
     let far_lo = span.0.min(range.0) * 10f64.powf(-FAR_DECADES);
     let far_hi = span.1.max(range.1) * 10f64.powf(FAR_DECADES);
-    if slope_lo == Some(0) {
-        plan.dc_db = match probe.db(0.0) {
-            Ok(d) if d.is_finite() => Some(d),
-            _ => probe.db(far_lo).ok().filter(|d| d.is_finite()),
+    let finite = |d: f64| d.is_finite().then_some(d);
+    // The levels at DC (or far below) and far above, where flat; both in one call when
+    // both are wanted and both solve.
+    let both = (slope_lo == Some(0) && slope_hi == Some(0))
+        .then(|| probe.db_many(&[0.0, far_hi]).ok())
+        .flatten();
+    if let Some([dc, hf]) = both.as_deref() {
+        plan.dc_db = match finite(*dc) {
+            Some(d) => Some(d),
+            None => probe.db(far_lo).ok().and_then(finite),
         };
-    }
-    if slope_hi == Some(0) {
-        plan.hf_db = probe.db(far_hi).ok().filter(|d| d.is_finite());
+        plan.hf_db = finite(*hf);
+    } else {
+        if slope_lo == Some(0) {
+            plan.dc_db = match probe.db(0.0) {
+                Ok(d) if d.is_finite() => Some(d),
+                _ => probe.db(far_lo).ok().and_then(finite),
+            };
+        }
+        if slope_hi == Some(0) {
+            plan.hf_db = probe.db(far_hi).ok().and_then(finite);
+        }
     }
     if !ratio {
         if opts.level_db.is_none() {
