@@ -19,7 +19,7 @@ use std::borrow::Cow;
 use std::ops::Range;
 use toml_parser::decoder::{Encoding, ScalarKind};
 use toml_parser::lexer::{Token, TokenKind};
-use toml_parser::parser::{Event, EventKind, EventReceiver};
+use toml_parser::parser::EventReceiver;
 use toml_parser::{ErrorSink, ParseError, Raw, Source, Span};
 
 /// A syntax or structure error, with the byte span it concerns.
@@ -788,29 +788,15 @@ impl<'s> EventReceiver for Builder<'s, '_> {
         }
     }
     fn simple_key(&mut self, span: Span, enc: Option<Encoding>, _e: &mut dyn ErrorSink) {
-        let k = KeyRef {
-            span: Sp::of(span),
-            enc,
-        };
-        let raw = self.doc.src.get(span.start()..span.end()).unwrap_or("");
-        // A bare key of the usual characters is valid as it stands; anything else is checked
-        // by the decoder.
-        let plain = enc.is_none()
-            && !raw.is_empty()
-            && raw
-                .bytes()
-                .all(|c| c.is_ascii_alphanumeric() || c == b'_' || c == b'-');
-        if !plain {
-            let mut err: Option<ParseError> = None;
-            let mut out: Cow<'s, str> = Cow::Borrowed("");
-            Raw::new_unchecked(raw, enc, span).decode_key(&mut out, &mut err);
-            if let Some(e) = err {
-                if self.error.is_none() {
-                    self.error = Some(from_parse_error(&e, span.start()..span.end()));
-                }
+        if let Some(e) = key_error(self.doc.src, span, enc) {
+            if self.error.is_none() {
+                self.error = Some(e);
             }
         }
-        self.keys.push(k);
+        self.keys.push(KeyRef {
+            span: Sp::of(span),
+            enc,
+        });
     }
     fn key_val_sep(&mut self, _span: Span, _e: &mut dyn ErrorSink) {
         let start = self.pending.len();
@@ -822,37 +808,67 @@ impl<'s> EventReceiver for Builder<'s, '_> {
         }
     }
     fn scalar(&mut self, span: Span, enc: Option<Encoding>, _e: &mut dyn ErrorSink) {
-        let sp = Sp::of(span);
-        // A one-line basic string with no escape and no control character is valid as it
-        // stands (the usual value text, "10k"); anything else is checked by the decoder.
-        let raw = self.doc.src.get(span.start()..span.end()).unwrap_or("");
-        let plain = enc == Some(Encoding::BasicString)
-            && raw.len() >= 2
-            && raw.ends_with('"')
-            && raw
-                .bytes()
-                .all(|c| c != b'\\' && (c >= 0x20 && c != 0x7f || c == b'\t'));
-        if plain {
-            self.deliver(Val::Scalar { span: sp, enc });
-            return;
-        }
-        if let Err(e) = decode_scalar(self.doc.src, sp, enc) {
+        if let Some(e) = scalar_error(self.doc.src, span, enc) {
             if self.error.is_none() {
                 self.error = Some(e);
             }
         }
-        self.deliver(Val::Scalar { span: sp, enc });
+        self.deliver(Val::Scalar {
+            span: Sp::of(span),
+            enc,
+        });
     }
     fn comment(&mut self, span: Span, _e: &mut dyn ErrorSink) {
-        let raw = self.doc.src.get(span.start()..span.end()).unwrap_or("");
-        let mut err: Option<ParseError> = None;
-        Raw::new_unchecked(raw, None, span).decode_comment(&mut err);
-        if let Some(e) = err {
+        if let Some(e) = comment_error(self.doc.src, span) {
             if self.error.is_none() {
-                self.error = Some(from_parse_error(&e, span.start()..span.end()));
+                self.error = Some(e);
             }
         }
     }
+}
+
+/// Why a key's text is not valid TOML, if it is not.
+fn key_error(src: &str, span: Span, enc: Option<Encoding>) -> Option<TreeError> {
+    let raw = src.get(span.start()..span.end()).unwrap_or("");
+    // A bare key of the usual characters is valid as it stands; anything else is checked by
+    // the decoder.
+    let plain = enc.is_none()
+        && !raw.is_empty()
+        && raw
+            .bytes()
+            .all(|c| c.is_ascii_alphanumeric() || c == b'_' || c == b'-');
+    if plain {
+        return None;
+    }
+    let mut err: Option<ParseError> = None;
+    let mut out: Cow<'_, str> = Cow::Borrowed("");
+    Raw::new_unchecked(raw, enc, span).decode_key(&mut out, &mut err);
+    err.map(|e| from_parse_error(&e, span.start()..span.end()))
+}
+
+/// Why a scalar's text is not valid TOML, if it is not.
+fn scalar_error(src: &str, span: Span, enc: Option<Encoding>) -> Option<TreeError> {
+    // A one-line basic string with no escape and no control character is valid as it
+    // stands (the usual value text, "10k"); anything else is checked by the decoder.
+    let raw = src.get(span.start()..span.end()).unwrap_or("");
+    let plain = enc == Some(Encoding::BasicString)
+        && raw.len() >= 2
+        && raw.ends_with('"')
+        && raw
+            .bytes()
+            .all(|c| c != b'\\' && (c >= 0x20 && c != 0x7f || c == b'\t'));
+    if plain {
+        return None;
+    }
+    decode_scalar(src, Sp::of(span), enc).err()
+}
+
+/// Why a comment is not valid TOML, if it is not.
+fn comment_error(src: &str, span: Span) -> Option<TreeError> {
+    let raw = src.get(span.start()..span.end()).unwrap_or("");
+    let mut err: Option<ParseError> = None;
+    Raw::new_unchecked(raw, None, span).decode_comment(&mut err);
+    err.map(|e| from_parse_error(&e, span.start()..span.end()))
 }
 
 impl Builder<'_, '_> {
@@ -917,20 +933,38 @@ fn next_chunk(
 /// assembled into the document.
 const PIPELINE_BYTES: usize = 1 << 20;
 
-/// Records, on the lexing thread, the events [`Builder`] acts on, for it to replay on its
-/// own thread; answers the parser's "may this be entered" as the builder would (the
-/// builder's frames are the top-level table and one per open inline table or array).
-struct Recorder {
-    events: Vec<Event>,
+/// An event [`Builder`] acts on, recorded on the parsing thread. Keys and scalars carry
+/// whether their text was found valid there (the builder then skips its own check); a
+/// comment is recorded only when it is not valid, for the builder to report.
+#[derive(Clone, Copy, Debug)]
+enum Rec {
+    StdTableOpen(Span),
+    ArrayTableOpen(Span),
+    StdTableClose(Span),
+    ArrayTableClose(Span),
+    InlineTableOpen(Span),
+    InlineTableClose(Span),
+    ArrayOpen(Span),
+    ArrayClose(Span),
+    Key(Span, Option<Encoding>, bool),
+    KeyValSep(Span),
+    Scalar(Span, Option<Encoding>, bool),
+    BadComment(Span),
+}
+
+/// Records, on the parsing thread, the events [`Builder`] acts on, for it to replay on its
+/// own thread, with the checks of key, scalar and comment text done here; answers the
+/// parser's "may this be entered" as the builder would (the builder's frames are the
+/// top-level table and one per open inline table or array).
+struct Recorder<'s> {
+    src: &'s str,
+    events: Vec<Rec>,
     depth: usize,
 }
 
-impl Recorder {
-    fn push(&mut self, kind: EventKind, span: Span, enc: Option<Encoding>) {
-        self.events.push(Event::new_unchecked(kind, enc, span));
-    }
-    fn enter(&mut self, kind: EventKind, span: Span) -> bool {
-        self.push(kind, span, None);
+impl Recorder<'_> {
+    fn enter(&mut self, event: Rec) -> bool {
+        self.events.push(event);
         if 1 + self.depth >= MAX_DEPTH {
             return false;
         }
@@ -939,73 +973,84 @@ impl Recorder {
     }
 }
 
-impl EventReceiver for Recorder {
+impl EventReceiver for Recorder<'_> {
     fn std_table_open(&mut self, span: Span, _e: &mut dyn ErrorSink) {
-        self.push(EventKind::StdTableOpen, span, None);
+        self.events.push(Rec::StdTableOpen(span));
     }
     fn array_table_open(&mut self, span: Span, _e: &mut dyn ErrorSink) {
-        self.push(EventKind::ArrayTableOpen, span, None);
+        self.events.push(Rec::ArrayTableOpen(span));
     }
     fn std_table_close(&mut self, span: Span, _e: &mut dyn ErrorSink) {
-        self.push(EventKind::StdTableClose, span, None);
+        self.events.push(Rec::StdTableClose(span));
         self.depth = 0;
     }
     fn array_table_close(&mut self, span: Span, _e: &mut dyn ErrorSink) {
-        self.push(EventKind::ArrayTableClose, span, None);
+        self.events.push(Rec::ArrayTableClose(span));
         self.depth = 0;
     }
     fn inline_table_open(&mut self, span: Span, _e: &mut dyn ErrorSink) -> bool {
-        self.enter(EventKind::InlineTableOpen, span)
+        self.enter(Rec::InlineTableOpen(span))
     }
     fn inline_table_close(&mut self, span: Span, _e: &mut dyn ErrorSink) {
-        self.push(EventKind::InlineTableClose, span, None);
+        self.events.push(Rec::InlineTableClose(span));
         self.depth = self.depth.saturating_sub(1);
     }
     fn array_open(&mut self, span: Span, _e: &mut dyn ErrorSink) -> bool {
-        self.enter(EventKind::ArrayOpen, span)
+        self.enter(Rec::ArrayOpen(span))
     }
     fn array_close(&mut self, span: Span, _e: &mut dyn ErrorSink) {
-        self.push(EventKind::ArrayClose, span, None);
+        self.events.push(Rec::ArrayClose(span));
         self.depth = self.depth.saturating_sub(1);
     }
     fn simple_key(&mut self, span: Span, enc: Option<Encoding>, _e: &mut dyn ErrorSink) {
-        self.push(EventKind::SimpleKey, span, enc);
+        let valid = key_error(self.src, span, enc).is_none();
+        self.events.push(Rec::Key(span, enc, valid));
     }
     fn key_val_sep(&mut self, span: Span, _e: &mut dyn ErrorSink) {
-        self.push(EventKind::KeyValSep, span, None);
+        self.events.push(Rec::KeyValSep(span));
     }
     fn scalar(&mut self, span: Span, enc: Option<Encoding>, _e: &mut dyn ErrorSink) {
-        self.push(EventKind::Scalar, span, enc);
+        let valid = scalar_error(self.src, span, enc).is_none();
+        self.events.push(Rec::Scalar(span, enc, valid));
     }
     fn comment(&mut self, span: Span, _e: &mut dyn ErrorSink) {
-        self.push(EventKind::Comment, span, None);
+        if comment_error(self.src, span).is_some() {
+            self.events.push(Rec::BadComment(span));
+        }
     }
 }
 
 impl Builder<'_, '_> {
-    /// Acts on recorded events as on the parser's own.
-    fn replay(&mut self, events: &[Event]) {
+    /// Acts on recorded events as on the parser's own (a key or scalar found valid where it
+    /// was recorded is taken without checking it again).
+    fn replay(&mut self, events: &[Rec]) {
         let e = &mut ();
-        for ev in events {
-            let (span, enc) = (ev.span(), ev.encoding());
-            match ev.kind() {
-                EventKind::StdTableOpen => self.std_table_open(span, e),
-                EventKind::ArrayTableOpen => self.array_table_open(span, e),
-                EventKind::StdTableClose => self.std_table_close(span, e),
-                EventKind::ArrayTableClose => self.array_table_close(span, e),
-                EventKind::InlineTableOpen => {
+        for &ev in events {
+            match ev {
+                Rec::StdTableOpen(span) => self.std_table_open(span, e),
+                Rec::ArrayTableOpen(span) => self.array_table_open(span, e),
+                Rec::StdTableClose(span) => self.std_table_close(span, e),
+                Rec::ArrayTableClose(span) => self.array_table_close(span, e),
+                Rec::InlineTableOpen(span) => {
                     let _ = self.inline_table_open(span, e);
                 }
-                EventKind::InlineTableClose => self.inline_table_close(span, e),
-                EventKind::ArrayOpen => {
+                Rec::InlineTableClose(span) => self.inline_table_close(span, e),
+                Rec::ArrayOpen(span) => {
                     let _ = self.array_open(span, e);
                 }
-                EventKind::ArrayClose => self.array_close(span, e),
-                EventKind::SimpleKey => self.simple_key(span, enc, e),
-                EventKind::KeyValSep => self.key_val_sep(span, e),
-                EventKind::Scalar => self.scalar(span, enc, e),
-                EventKind::Comment => self.comment(span, e),
-                _ => {}
+                Rec::ArrayClose(span) => self.array_close(span, e),
+                Rec::Key(span, enc, true) => self.keys.push(KeyRef {
+                    span: Sp::of(span),
+                    enc,
+                }),
+                Rec::Key(span, enc, false) => self.simple_key(span, enc, e),
+                Rec::KeyValSep(span) => self.key_val_sep(span, e),
+                Rec::Scalar(span, enc, true) => self.deliver(Val::Scalar {
+                    span: Sp::of(span),
+                    enc,
+                }),
+                Rec::Scalar(span, enc, false) => self.scalar(span, enc, e),
+                Rec::BadComment(span) => self.comment(span, e),
             }
         }
     }
@@ -1077,13 +1122,14 @@ fn parse_on<'s>(
         // Lexing and parsing on a thread of its own, a few chunks ahead of the assembly;
         // the event lists go back to it for reuse. When the assembly stops early, dropping
         // the receiver ends it.
-        type Parsed = (Vec<Event>, Vec<ParseError>);
+        type Parsed = (Vec<Rec>, Vec<ParseError>);
         std::thread::scope(|scope| {
             let (to_builder, from_parser) = std::sync::mpsc::sync_channel::<Parsed>(4);
             let (to_parser, spent) = std::sync::mpsc::channel::<Parsed>();
             scope.spawn(move || {
                 let mut chunk = Vec::with_capacity(CHUNK_TOKENS + 4096);
                 let mut recorder = Recorder {
+                    src,
                     events: Vec::new(),
                     depth: 0,
                 };
@@ -1259,6 +1305,9 @@ h = "a\\b"
             big.replace("R9000 =", "R9000 = = "),
             big.replace("R11999 = {", "'R11999' = { \"a\\u0009b\" = 1,"),
             big.replace("# n\n", "# n\u{7f}\n"),
+            big.replace("R10500 = {", "R10500 = { \"k\\q\" = 1,"),
+            big.replace("resistor = \"10600\"", "resistor = \"10\\q600\""),
+            big.replace("resistor = \"10601\"", "resistor = 99999999999999999999"),
         ];
         for (i, src) in cases.iter().enumerate() {
             for stop in ["none", "R7001"] {
@@ -1287,6 +1336,19 @@ h = "a\\b"
         );
         assert!(format!("{:?}", parse_on(&cases[2], &mut KeepAll, true))
             .contains("duplicate key `R17`"));
+        // A bad comment, key, string and integer, each found where it is.
+        for (bad, at) in cases[10..]
+            .iter()
+            .zip(["R0 ", "R10500 ", "R10600 ", "R10601 "])
+        {
+            let Err(Failure::Syntax(e)) = parse_on(bad, &mut KeepAll, true) else {
+                panic!("{at}")
+            };
+            // The error lies in that part's entry (up to the next part's name).
+            let start = bad.find(&format!("\n{at}")).unwrap();
+            let end = start + 1 + bad[start + 1..].find("\nR").unwrap();
+            assert!((start..end).contains(&e.span.start), "{at}: {e:?}");
+        }
     }
 
     #[test]
