@@ -581,13 +581,22 @@ pub struct Workspace<'a> {
     /// Several frequencies per pass, where the solver path has such a kernel; made when
     /// first needed (None until then, Some(None) on a path without one).
     wide: Option<Option<Box<dyn LaneSolver + 'a>>>,
+    buf: Buffers,
+    points: Vec<Point>,
+    /// Groups the wide solver failed on, so they were evaluated one frequency at a time.
+    regrouped: usize,
+    /// Workspaces of the other threads, for a large system's shares of
+    /// [`Evaluator::at_many`]; made when first needed, kept for the next call.
+    helpers: Vec<Workspace<'a>>,
+}
+
+/// The vectors a group of frequencies is evaluated in.
+struct Buffers {
     /// Per excitation, the solutions of the current group, lane-major.
     xs: Vec<Vec<Complex64>>,
     /// Per excitation, their ω-derivatives.
     dxs: Vec<Vec<Complex64>>,
-    points: Vec<Point>,
-    /// Groups the wide solver failed on, so they were evaluated one frequency at a time.
-    regrouped: usize,
+    /// Noise: the output read-out in every lane, and the adjoint solutions.
     noise_rhs: Vec<Complex64>,
     ys: Vec<Complex64>,
 }
@@ -595,11 +604,7 @@ pub struct Workspace<'a> {
 /// The solver and buffers one group of frequencies is evaluated with.
 struct Group<'w, 'a> {
     solver: &'w mut (dyn LaneSolver + 'a),
-    xs: &'w mut [Vec<Complex64>],
-    dxs: &'w mut [Vec<Complex64>],
-    /// Noise: the output read-out in every lane, and the adjoint solutions.
-    noise_rhs: &'w mut Vec<Complex64>,
-    ys: &'w mut Vec<Complex64>,
+    buf: &'w mut Buffers,
 }
 
 impl<'a> Evaluator<'a> {
@@ -626,12 +631,15 @@ impl<'a> Evaluator<'a> {
         Workspace {
             one: None,
             wide: None,
-            xs: vec![vec![Complex64::default(); a.sys.n * lanes]; a.rhs.len()],
-            dxs: vec![vec![Complex64::default(); a.sys.n * lanes]; a.rhs.len()],
+            buf: Buffers {
+                xs: vec![vec![Complex64::default(); a.sys.n * lanes]; a.rhs.len()],
+                dxs: vec![vec![Complex64::default(); a.sys.n * lanes]; a.rhs.len()],
+                noise_rhs: Vec::new(),
+                ys: Vec::new(),
+            },
             points: vec![Point::default(); a.specs.len()],
             regrouped: 0,
-            noise_rhs: Vec::new(),
-            ys: Vec::new(),
+            helpers: Vec::new(),
         }
     }
 
@@ -652,7 +660,7 @@ impl<'a> Evaluator<'a> {
             .excitations
             .iter()
             .position(|e| *e == Excitation::Design)?;
-        ws.xs.get(e).and_then(|x| x.get(..self.analysis.sys.n))
+        ws.buf.xs.get(e).and_then(|x| x.get(..self.analysis.sys.n))
     }
 
     /// All responses at frequency `f` (Hz), with ω-derivatives when `derivatives` is set.
@@ -664,23 +672,14 @@ impl<'a> Evaluator<'a> {
         f: Hertz,
         derivatives: bool,
     ) -> Result<&'w [Point], AnalysisError> {
-        let nr = self.analysis.specs.len();
-        ws.points.resize(nr, Point::default());
-        let mut group = Group {
-            solver: self.one(&mut ws.one),
-            xs: &mut ws.xs,
-            dxs: &mut ws.dxs,
-            noise_rhs: &mut ws.noise_rhs,
-            ys: &mut ws.ys,
-        };
-        self.eval_group(&mut group, &[f], derivatives, &mut ws.points)?;
-        Ok(&ws.points)
+        self.at_many(ws, &[f], derivatives)
     }
 
     /// All responses at every frequency of `freqs` (Hz): point-major, response `r` at
     /// `freqs[k]` is element `k·R + r` for R responses. Small systems are solved several
-    /// frequencies per pass; the values are those [`Evaluator::at`] gives. Fails with the
-    /// error of the first frequency (in the order given) that fails.
+    /// frequencies per pass, large ones (from `PARALLEL_PROBE_UNKNOWNS`) on several threads;
+    /// the values are those one frequency at a time gives. Fails with the error of the first
+    /// frequency (in the order given) that fails.
     pub fn at_many<'w>(
         &self,
         ws: &'w mut Workspace<'a>,
@@ -713,23 +712,31 @@ impl<'a> Evaluator<'a> {
             && self.analysis.sys.n >= PARALLEL_PROBE_UNKNOWNS
         {
             // A large system: the frequencies are shared among the threads, this workspace
-            // taking the first share and a workspace of its own each of the others.
+            // taking the first share and a helper workspace each of the others.
             let per = freqs.len().div_ceil(threads);
             let (mine, rest) = freqs.split_at(per);
             let (head, tail) = points.split_at_mut(per * nr);
+            let mut helpers = std::mem::take(&mut ws.helpers);
+            while helpers.len() < rest.len().div_ceil(per) {
+                helpers.push(self.workspace());
+            }
             let (first, others) = rayon::join(
                 || self.one_by_one(ws, mine, derivatives, head),
                 || {
                     rest.par_chunks(per)
                         .zip(tail.par_chunks_mut(per * nr))
-                        .map(|(fs, out)| {
-                            self.one_by_one(&mut self.workspace(), fs, derivatives, out)
-                        })
+                        .zip(helpers.par_iter_mut())
+                        .map(|((fs, out), w)| self.one_by_one(w, fs, derivatives, out))
                         .collect::<Vec<_>>()
                 },
             );
+            ws.helpers = helpers;
             // The first failure in the order of `freqs`.
             return std::iter::once(first).chain(others).collect();
+        }
+        if freqs.len() < 2 {
+            // A single point ([`Evaluator::at`]) never makes the wide solver.
+            return self.one_by_one(ws, freqs, derivatives, points);
         }
         // A large system's second solver would be costly to make for nothing.
         let wide = ws.wide.get_or_insert_with(|| {
@@ -746,10 +753,7 @@ impl<'a> Evaluator<'a> {
                 if let Some(Some(wide)) = ws.wide.as_mut() {
                     let mut group = Group {
                         solver: wide.as_mut(),
-                        xs: &mut ws.xs,
-                        dxs: &mut ws.dxs,
-                        noise_rhs: &mut ws.noise_rhs,
-                        ys: &mut ws.ys,
+                        buf: &mut ws.buf,
                     };
                     if self.eval_group(&mut group, fs, derivatives, out).is_ok() {
                         continue;
@@ -776,10 +780,7 @@ impl<'a> Evaluator<'a> {
         for (k, &f) in freqs.iter().enumerate() {
             let mut group = Group {
                 solver: self.one(&mut ws.one),
-                xs: &mut ws.xs,
-                dxs: &mut ws.dxs,
-                noise_rhs: &mut ws.noise_rhs,
-                ys: &mut ws.ys,
+                buf: &mut ws.buf,
             };
             let slot = out.get_mut(k * nr..(k + 1) * nr).unwrap_or_default();
             self.eval_group(&mut group, &[f], derivatives, slot)?;
@@ -833,7 +834,7 @@ impl<'a> Evaluator<'a> {
             },
         })?;
         for (e, rhs) in a.rhs.iter().enumerate() {
-            let (Some(x), Some(dx)) = (g.xs.get_mut(e), g.dxs.get_mut(e)) else {
+            let (Some(x), Some(dx)) = (g.buf.xs.get_mut(e), g.buf.dxs.get_mut(e)) else {
                 continue;
             };
             g.solver.solve_checked(rhs, x).map_err(lane_error)?;
@@ -848,8 +849,10 @@ impl<'a> Evaluator<'a> {
                 if r.noise.is_some() {
                     continue;
                 }
-                let x = g.xs[r.excitation].get(span.clone()).unwrap_or_default();
-                let dx = g.dxs[r.excitation].get(span.clone()).unwrap_or_default();
+                let x = g.buf.xs[r.excitation].get(span.clone()).unwrap_or_default();
+                let dx = g.buf.dxs[r.excitation]
+                    .get(span.clone())
+                    .unwrap_or_default();
                 let design = a.excitations[r.excitation] == Excitation::Design;
                 *point = r.point(x, dx, omega, design, derivatives).ok_or_else(|| {
                     AnalysisError::ZeroDenominator {
@@ -866,13 +869,13 @@ impl<'a> Evaluator<'a> {
                 continue;
             };
             let count = omegas.len();
-            g.noise_rhs.clear();
+            g.buf.noise_rhs.clear();
             for _ in 0..count {
-                g.noise_rhs.extend_from_slice(&plan.output);
+                g.buf.noise_rhs.extend_from_slice(&plan.output);
             }
-            g.ys.resize(n * count, Complex64::default());
+            g.buf.ys.resize(n * count, Complex64::default());
             g.solver
-                .solve_transposed_checked(g.noise_rhs, g.ys)
+                .solve_transposed_checked(&g.buf.noise_rhs, &mut g.buf.ys)
                 .map_err(lane_error)?;
             for lane in 0..count {
                 let f = freq(lane);
@@ -880,7 +883,7 @@ impl<'a> Evaluator<'a> {
                     Some(j) => out.get(lane * nr + j).map_or(f64::NAN, |p| p.value.norm()),
                     None => 1.0,
                 };
-                let y = g.ys.get(lane * n..(lane + 1) * n).unwrap_or_default();
+                let y = g.buf.ys.get(lane * n..(lane + 1) * n).unwrap_or_default();
                 let total = plan.total(f, y, scale);
                 if scale == 0.0 || !total.is_finite() {
                     return Err(AnalysisError::NoiseUndefined {
@@ -931,9 +934,9 @@ impl<'a> Evaluator<'a> {
             }
         };
         let n = a.sys.n;
-        ws.ys.resize(n, Complex64::default());
+        ws.buf.ys.resize(n, Complex64::default());
         self.one(&mut ws.one)
-            .solve_transposed_checked(&plan.output, &mut ws.ys)
+            .solve_transposed_checked(&plan.output, &mut ws.buf.ys)
             .map_err(|e| match e.failure {
                 SolveFailure::Singular(_) | SolveFailure::Untrustworthy { .. } => {
                     AnalysisError::Untrustworthy {
@@ -943,7 +946,7 @@ impl<'a> Evaluator<'a> {
                 }
             })?;
         let mut parts = Vec::with_capacity(plan.sources.len());
-        let total = plan.contributions(f, &ws.ys, scale, &mut parts);
+        let total = plan.contributions(f, &ws.buf.ys, scale, &mut parts);
         Ok(Breakdown { total, parts })
     }
 
@@ -979,7 +982,10 @@ impl<'a> Evaluator<'a> {
         let point = self.at(ws, f, true)?[index];
         let n = a.sys.n;
         let omega = 2.0 * PI * f;
-        let x: Vec<Complex64> = ws.xs[r.excitation].get(..n).unwrap_or_default().to_vec();
+        let x: Vec<Complex64> = ws.buf.xs[r.excitation]
+            .get(..n)
+            .unwrap_or_default()
+            .to_vec();
         let design = a.excitations.get(r.excitation) == Some(&Excitation::Design);
         let num = r.numerator.eval(&x, omega, design);
         let den = r
@@ -1004,14 +1010,14 @@ impl<'a> Evaluator<'a> {
         if let Some(d) = &r.denominator {
             put(d, -den.inv());
         }
-        ws.ys.resize(n, Complex64::default());
+        ws.buf.ys.resize(n, Complex64::default());
         self.one(&mut ws.one)
-            .solve_transposed_checked(&w, &mut ws.ys)
+            .solve_transposed_checked(&w, &mut ws.buf.ys)
             .map_err(|_| AnalysisError::Untrustworthy {
                 frequency: f,
                 residual: f64::INFINITY,
             })?;
-        let y = &ws.ys;
+        let y = &ws.buf.ys;
         let probes = match spec.map(|s| &s.kind) {
             Some(ResponseKind::Ratio {
                 numerator,

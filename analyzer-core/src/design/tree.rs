@@ -324,10 +324,9 @@ impl<'d, 's> Value<'d, 's> {
                 // characters were checked when it was parsed): no decoder needed.
                 if let Some(Encoding::BasicString | Encoding::LiteralString) = enc {
                     let raw = doc.src.get(span.range()).unwrap_or("");
-                    if let Some(inner) = raw.get(1..raw.len().saturating_sub(1)) {
-                        if raw.len() >= 2 && !inner.contains('\\') {
-                            return Some(Scalar::Str(Cow::Borrowed(inner)));
-                        }
+                    let inner = raw.get(1..raw.len().saturating_sub(1));
+                    if let Some(inner) = inner.filter(|i| raw.len() >= 2 && !i.contains('\\')) {
+                        return Some(Scalar::Str(Cow::Borrowed(inner)));
                     }
                 }
                 decode_scalar(doc.src, span, enc).ok()
@@ -529,11 +528,16 @@ struct Builder<'s, 'c> {
 
 impl<'s> Builder<'s, '_> {
     fn fail(&mut self, span: Sp, message: impl Into<String>) {
+        self.keep_first(Some(TreeError {
+            span: span.range(),
+            message: message.into(),
+        }));
+    }
+
+    /// Keeps `error` unless an error is already kept (the first in the document stands).
+    fn keep_first(&mut self, error: Option<TreeError>) {
         if self.error.is_none() {
-            self.error = Some(TreeError {
-                span: span.range(),
-                message: message.into(),
-            });
+            self.error = error;
         }
     }
 
@@ -788,11 +792,7 @@ impl<'s> EventReceiver for Builder<'s, '_> {
         }
     }
     fn simple_key(&mut self, span: Span, enc: Option<Encoding>, _e: &mut dyn ErrorSink) {
-        if let Some(e) = key_error(self.doc.src, span, enc) {
-            if self.error.is_none() {
-                self.error = Some(e);
-            }
-        }
+        self.keep_first(key_error(self.doc.src, span, enc));
         self.keys.push(KeyRef {
             span: Sp::of(span),
             enc,
@@ -808,22 +808,14 @@ impl<'s> EventReceiver for Builder<'s, '_> {
         }
     }
     fn scalar(&mut self, span: Span, enc: Option<Encoding>, _e: &mut dyn ErrorSink) {
-        if let Some(e) = scalar_error(self.doc.src, span, enc) {
-            if self.error.is_none() {
-                self.error = Some(e);
-            }
-        }
+        self.keep_first(scalar_error(self.doc.src, span, enc));
         self.deliver(Val::Scalar {
             span: Sp::of(span),
             enc,
         });
     }
     fn comment(&mut self, span: Span, _e: &mut dyn ErrorSink) {
-        if let Some(e) = comment_error(self.doc.src, span) {
-            if self.error.is_none() {
-                self.error = Some(e);
-            }
-        }
+        self.keep_first(comment_error(self.doc.src, span));
     }
 }
 
