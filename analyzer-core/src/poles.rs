@@ -334,6 +334,19 @@ impl Pencil {
         if m == 0 {
             return Ok(Vec::new());
         }
+        // The columns J of B holding a nonzero. K = (A + σB)⁻¹B is zero in every other
+        // column, so with J first K is block lower triangular, [[K_JJ, 0], [K_IJ, 0]]: its
+        // eigenvalues are those of K_JJ and m − |J| exact zeros (infinite λ). MNA pencils
+        // have many such columns (every unknown no capacitor or inductor touches), and the
+        // eigensolver then works on the dynamic part alone.
+        let cols: Vec<usize> = (0..m)
+            .filter(|&c| {
+                self.b[c * m..(c + 1) * m]
+                    .iter()
+                    .any(|z| z.re != 0.0 || z.im != 0.0)
+            })
+            .collect();
+        let r = cols.len();
         for sigma in [1.0, 1.37, 0.61, 2.3, 0.29] {
             let shifted: Vec<c64> = self
                 .a
@@ -341,25 +354,36 @@ impl Pencil {
                 .zip(&self.b)
                 .map(|(a, b)| a + b * sigma)
                 .collect();
-            let mu = if self.is_real() {
+            let mut mu = if self.is_real() {
                 let s = faer::Mat::<f64>::from_fn(m, m, |r, c| shifted[c * m + r].re);
                 let lu = s.partial_piv_lu();
                 if !regular(lu.U().diagonal().column_vector().iter().map(|d| d.abs())) {
                     continue;
                 }
-                let b = faer::Mat::<f64>::from_fn(m, m, |r, c| self.b[c * m + r].re);
-                let k = lu.solve(&b);
-                k.eigenvalues().map_err(|_| PoleError::NoConvergence)?
+                if r == 0 {
+                    Vec::new()
+                } else {
+                    let b = faer::Mat::<f64>::from_fn(m, r, |i, k| self.b[cols[k] * m + i].re);
+                    let x = lu.solve(&b);
+                    let k = faer::Mat::<f64>::from_fn(r, r, |i, j| x[(cols[i], j)]);
+                    k.eigenvalues().map_err(|_| PoleError::NoConvergence)?
+                }
             } else {
                 let s = faer::Mat::<c64>::from_fn(m, m, |r, c| shifted[c * m + r]);
                 let lu = s.partial_piv_lu();
                 if !regular(lu.U().diagonal().column_vector().iter().map(|d| d.norm())) {
                     continue;
                 }
-                let b = faer::Mat::<c64>::from_fn(m, m, |r, c| self.b[c * m + r]);
-                let k = lu.solve(&b);
-                k.eigenvalues().map_err(|_| PoleError::NoConvergence)?
+                if r == 0 {
+                    Vec::new()
+                } else {
+                    let b = faer::Mat::<c64>::from_fn(m, r, |i, k| self.b[cols[k] * m + i]);
+                    let x = lu.solve(&b);
+                    let k = faer::Mat::<c64>::from_fn(r, r, |i, j| x[(cols[i], j)]);
+                    k.eigenvalues().map_err(|_| PoleError::NoConvergence)?
+                }
             };
+            mu.resize(m, c64::new(0.0, 0.0));
             return Ok(mu
                 .into_iter()
                 .map(|mu| {
@@ -681,6 +705,49 @@ mod tests {
                 assert!((v - (k + 1) as f64).abs() < 1e-9, "m = {m}: {ev:?}");
             }
         }
+    }
+
+    /// A pencil with columns of B that are zero (unknowns no storage element touches): the
+    /// eigensolver works on the other columns alone and the rest count as infinite. Upper
+    /// triangular A with diagonal 1..m, B = −1 on four of the diagonal's places, columns
+    /// rotated: det(A + λB) is ±Π(a_ii + λb_ii), so the finite eigenvalues are exactly the
+    /// a_ii of those four places and the other eight are infinite (closed form).
+    #[test]
+    fn columns_without_storage_are_infinite_eigenvalues() {
+        let m = 12;
+        let dynamic = [1usize, 4, 5, 9];
+        let mut p = Pencil {
+            m,
+            a: vec![c64::new(0.0, 0.0); m * m],
+            b: vec![c64::new(0.0, 0.0); m * m],
+        };
+        // Column c of the pencil is column (c + 5) mod m of the triangular one.
+        let at = |r: usize, c: usize| ((c + m - 5) % m) * m + r;
+        for i in 0..m {
+            p.a[at(i, i)] = c64::new((i + 1) as f64, 0.0);
+            for j in i + 1..m {
+                p.a[at(i, j)] = c64::new(0.3 * (i + j) as f64, 0.0);
+            }
+        }
+        for &i in &dynamic {
+            p.b[at(i, i)] = c64::new(-1.0, 0.0);
+        }
+        let ev = p.eigenvalues().unwrap();
+        let mut finite: Vec<f64> = ev
+            .iter()
+            .filter(|l| l.re.is_finite())
+            .map(|l| l.re)
+            .collect();
+        finite.sort_by(f64::total_cmp);
+        assert_eq!(finite.len(), dynamic.len(), "{ev:?}");
+        for (v, &i) in finite.iter().zip(&dynamic) {
+            assert!((v - (i + 1) as f64).abs() < 1e-12, "{ev:?}");
+        }
+        assert!(
+            ev.iter().all(|l| l.im.abs() < 1e-12 || !l.re.is_finite()),
+            "{ev:?}"
+        );
+        assert_eq!(ev.len(), m);
     }
 
     /// RC low-pass: one pole at −1/RC, no zero (closed form).

@@ -522,6 +522,11 @@ mod tests {
     }
 
     fn ladder(sections: usize) -> System {
+        System::assemble(&ladder_builder(sections).build().unwrap())
+    }
+
+    /// An R–L–C ladder of `sections` driven by a voltage source, loaded by 50 Ω.
+    pub(super) fn ladder_builder(sections: usize) -> NetworkBuilder {
         let mut b = NetworkBuilder::new("ladder");
         b.voltage_source("V1", "n0", "gnd", 1.0.into()).unwrap();
         for k in 0..sections {
@@ -534,7 +539,7 @@ mod tests {
         }
         b.resistor("RL", &format!("n{sections}"), "gnd", 50.0)
             .unwrap();
-        System::assemble(&b.build().unwrap())
+        b
     }
 
     /// Every path gives the same solution on every size the small kernel serves and beyond.

@@ -202,8 +202,16 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
         self.norm = norm;
         let omega = self.omega;
         let (re, im) = (&mut self.re, &mut self.im);
-        for i in 0..N {
-            for j in 0..N {
+        // Only the pattern's entries are written. The rest may hold the last factorisation's
+        // values: an entry entering a row's mask (fill, or a lane's interchange) is zeroed
+        // first, and so is a pivot position outside it, so every entry read is what a fully
+        // zeroed matrix would hold and the arithmetic is the same.
+        let mut rows = self.pattern_rows;
+        for (i, &row) in rows.iter().enumerate() {
+            let mut m = row;
+            while m != 0 {
+                let j = m.trailing_zeros() as usize;
+                m &= m - 1;
                 re[i][j] = [self.g[i][j]; L];
                 for l in 0..L {
                     im[i][j][l] = omega[l] * self.c[i][j];
@@ -215,13 +223,16 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
                 *v = i;
             }
         }
-        // Which entries may be nonzero, row by row, kept through the interchanges and the
-        // fill: rows and columns outside it hold exact zeros in every lane, so skipping them
+        // `rows`: which entries may be nonzero, row by row, kept through the interchanges
+        // and the fill: entries outside it are exact zeros in every lane, so skipping them
         // changes no bit of a result except possibly the sign of a zero (as below).
-        let mut rows = self.pattern_rows;
         let mut failed: [Option<usize>; L] = [None; L];
         for k in 0..N {
             let bit = 1u32 << k;
+            if rows[k] & bit == 0 {
+                re[k][k] = [0.0; L];
+                im[k][k] = [0.0; L];
+            }
             let mut best = [0.0f64; L];
             let mut piv = [k; L];
             for l in 0..L {
@@ -239,9 +250,17 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
                     }
                 }
             }
-            for l in 0..L {
-                if (best[l] == 0.0 || !best[l].is_finite()) && failed[l].is_none() {
-                    failed[l] = Some(k);
+            // A zero or non-finite pivot in some lane (one vector test in the usual case
+            // that there is none; `best` is a sum of magnitudes, so never negative).
+            let mut bad = false;
+            for b in best {
+                bad |= !(b > 0.0 && b <= f64::MAX);
+            }
+            if bad {
+                for l in 0..L {
+                    if (best[l] == 0.0 || !best[l].is_finite()) && failed[l].is_none() {
+                        failed[l] = Some(k);
+                    }
                 }
             }
             if piv.iter().all(|&p| p == piv[0]) {
@@ -262,8 +281,17 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
                 for (l, &p) in piv.iter().enumerate() {
                     if p != k {
                         // The lanes now differ in which row is where: both rows may hold
-                        // either's entries.
+                        // either's entries (zeros where a row had none).
                         let both = rows[k] | rows[p];
+                        for r in [k, p] {
+                            let mut m = both & !rows[r];
+                            while m != 0 {
+                                let j = m.trailing_zeros() as usize;
+                                m &= m - 1;
+                                re[r][j] = [0.0; L];
+                                im[r][j] = [0.0; L];
+                            }
+                        }
                         rows[k] = both;
                         rows[p] = both;
                         for j in 0..N {
@@ -324,6 +352,13 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
                 ri[k] = li;
                 if !any {
                     continue;
+                }
+                let mut fill = upper & !*row;
+                while fill != 0 {
+                    let j = fill.trailing_zeros() as usize;
+                    fill &= fill - 1;
+                    rr[j] = [0.0; L];
+                    ri[j] = [0.0; L];
                 }
                 *row |= upper;
                 for &j in cols {
@@ -797,5 +832,93 @@ mod tests {
                 );
             }
         }
+    }
+
+    /// A ladder driven by a voltage source (its branch row makes the pivot search swap
+    /// rows) with a floating capacitor across two sections (fill), and a node held by a source
+    /// alone: 13 unknowns.
+    fn source_ladder() -> System {
+        let mut b = crate::solve::tests::ladder_builder(3);
+        b.capacitor("CX", "m0", "n2", 1e-7).unwrap();
+        // A node held by a source and nothing else: its row and the source's are a swapped
+        // pair with no diagonal, so the pivot search starts off the row's mask there.
+        b.voltage_source("VB", "bias", "gnd", 2.0.into()).unwrap();
+        System::assemble(&b.build().unwrap())
+    }
+
+    /// Solution, derivative and transposed solution of every lane at `omegas`, as bits.
+    fn lane_bits<const N: usize, const L: usize>(
+        lu: &mut LaneLu<N, L>,
+        sys: &System,
+        omegas: &[f64],
+    ) -> Vec<u64> {
+        LaneSolver::factor(lu, omegas).unwrap();
+        let k = omegas.len() * N;
+        let (mut x, mut dx, mut t) = (
+            vec![Complex64::default(); k],
+            vec![Complex64::default(); k],
+            vec![Complex64::default(); k],
+        );
+        lu.solve_checked(&sys.b, &mut x).unwrap();
+        lu.derivative(&x, &mut dx);
+        lu.solve_transposed_checked(&x, &mut t).unwrap();
+        x.iter()
+            .chain(&dx)
+            .chain(&t)
+            .flat_map(|z| [z.re.to_bits(), z.im.to_bits()])
+            .collect()
+    }
+
+    /// The factorisation writes only the pattern's entries, zeroing an entry as it enters
+    /// a row's mask: whatever an earlier factorisation (or anything else) left in the
+    /// arrays, the results are those of a fresh solver, bit for bit. Checked with every
+    /// entry poisoned with NaN (an entry read before it is written would spread it) and
+    /// after factorisations at other frequencies, with eight lanes and one.
+    fn stale_entries_are_never_read<const N: usize>(sys: &System) {
+        assert_eq!(sys.n, N);
+        let omegas: Vec<f64> = (0..8).map(|k| 1e2 * 10f64.powf(k as f64 * 0.7)).collect();
+        let others: Vec<f64> = omegas.iter().map(|w| w * 3.1).rev().collect();
+        let fresh = lane_bits(&mut LaneLu::<N, 8>::new(sys), sys, &omegas);
+        let mut poisoned = LaneLu::<N, 8>::new(sys);
+        poisoned.re = [[[f64::NAN; 8]; N]; N];
+        poisoned.im = [[[f64::NAN; 8]; N]; N];
+        assert!(
+            lane_bits(&mut poisoned, sys, &omegas) == fresh,
+            "n = {N}, poisoned"
+        );
+        let mut reused = LaneLu::<N, 8>::new(sys);
+        lane_bits(&mut reused, sys, &others);
+        assert!(
+            lane_bits(&mut reused, sys, &omegas) == fresh,
+            "n = {N}, reused"
+        );
+        for &w in &omegas {
+            let fresh = lane_bits(&mut LaneLu::<N, 1>::new(sys), sys, &[w]);
+            let mut one = LaneLu::<N, 1>::new(sys);
+            one.re = [[[f64::NAN; 1]; N]; N];
+            one.im = [[[f64::NAN; 1]; N]; N];
+            assert!(lane_bits(&mut one, sys, &[w]) == fresh, "n = {N}, one lane");
+        }
+    }
+
+    #[test]
+    fn entries_left_by_an_earlier_factorisation_are_never_read() {
+        let sys = crossing_pivots();
+        let mut wide = LaneLu::<3, 8>::new(&sys);
+        let omegas: Vec<f64> = (0..8).map(|k| 1e2 * 10f64.powf(k as f64 * 0.7)).collect();
+        LaneSolver::factor(&mut wide, &omegas).unwrap();
+        assert!(
+            wide.perm.iter().any(|p| *p != wide.perm[0]),
+            "lanes pivot alike"
+        );
+        stale_entries_are_never_read::<3>(&sys);
+        let sys = source_ladder();
+        let mut one = LaneLu::<13, 1>::new(&sys);
+        LaneSolver::factor(&mut one, &[1e3]).unwrap();
+        assert!(
+            one.perm[0].iter().enumerate().any(|(i, &p)| i != p),
+            "no interchange"
+        );
+        stale_entries_are_never_read::<13>(&sys);
     }
 }
