@@ -85,6 +85,16 @@ impl Skeleton {
             .collect();
         let mut nodes: Vec<Node> = Vec::new();
         let mut refined: Vec<(f64, f64, bool)> = Vec::new();
+        // An extremum of the same kind already refined inside a bracket (or within
+        // [`DISTINCT`] of its ends: a scan point can sit on the peak itself) is the one that
+        // bracket holds: the grid, the auxiliary grid and the seeds' scans often bracket the
+        // same peak, and each refinement is a dozen solves.
+        let known = |refined: &[(f64, f64, bool)], a: f64, b: f64, peak: bool| {
+            let (a, b) = (a.min(b) * (1.0 - DISTINCT), a.max(b) * (1.0 + DISTINCT));
+            refined
+                .iter()
+                .any(|&(f, _, p)| p == peak && f >= a && f <= b)
+        };
         // Grid indices of each turning point's neighbours, to bracket it.
         let pos = |k: usize| idx.binary_search(&k).unwrap_or(0);
         for t in 1..seq.len().saturating_sub(1) {
@@ -105,6 +115,9 @@ impl Skeleton {
                 pts.freq(j),
                 pts.freq(idx[(p + 1).min(idx.len() - 1)]),
             );
+            if known(&refined, fl, fh, peak) {
+                continue;
+            }
             let f = probe.extremum(fl, fm, fh, peak)?;
             refined.push((f, probe.db(f)?, peak));
         }
@@ -126,7 +139,7 @@ impl Skeleton {
                     let peak = y.1 > x.1 && y.1 >= z.1;
                     let notch = y.1 < x.1 && y.1 <= z.1;
                     let swing = (y.1 - x.1).abs().max((y.1 - z.1).abs());
-                    if (peak || notch) && swing >= NOISE_DB {
+                    if (peak || notch) && swing >= NOISE_DB && !known(&refined, x.0, z.0, peak) {
                         let f = probe.extremum(x.0, y.0, z.0, peak)?;
                         refined.push((f, probe.db(f)?, peak));
                     }
@@ -145,10 +158,15 @@ impl Skeleton {
                     scan.iter().copied().zip(probe.slopes(&scan)?).collect();
                 for (k, &(f, s)) in slopes.iter().enumerate() {
                     if let Some((fp, sp)) = prev.replace((f, s)) {
-                        if (sp > 0.0) != (s > 0.0) && sp != 0.0 && s != 0.0 {
-                            let peak = sp > 0.0;
+                        let peak = sp > 0.0;
+                        if (sp > 0.0) != (s > 0.0)
+                            && sp != 0.0
+                            && s != 0.0
+                            && !known(&refined, fp, f, peak)
+                        {
                             let mid = slopes.get(k.saturating_sub(1)).map_or(f, |x| x.0);
-                            let fe = probe.extremum(fp, mid, f, peak)?;
+                            // The scan's slopes at the ends are those a probe there gives.
+                            let fe = probe.extremum_from(fp, mid, f, peak, Some((sp, s)))?;
                             refined.push((fe, probe.db(fe)?, peak));
                         }
                     }
@@ -277,6 +295,83 @@ fn bases(v: impl Iterator<Item = f64>) -> Vec<f64> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::metrics::Trace;
+    use crate::response::Analysis;
+    use crate::sweep::Grid;
+
+    /// A series R–L–C read across R (R = 10 Ω, L = 1 mH, C = 1 µF) peaks at
+    /// f0 = 1/(2π√(LC)) = 5,032.92 Hz at 0 dB, Q = √(L/C)/R = 3.16 (closed form). The sweep's
+    /// grid, the auxiliary grid over the poles and the scan around the pole pair all bracket
+    /// that peak; it is refined once, so the skeleton costs one refinement beside the
+    /// auxiliary grid and the scan (a refinement is a dozen solves: refining it three times
+    /// costs two dozen more).
+    #[test]
+    fn a_peak_bracketed_three_ways_is_refined_once() {
+        let d = crate::design::parse(
+            r#"[parts]
+V1 = { voltage = "1", between = ["in", "gnd"] }
+L1 = { inductor = "1m", between = ["in", "a"] }
+C1 = { capacitor = "1u", between = ["a", "out"] }
+R1 = { resistor = "10", between = ["out", "gnd"] }
+[responses]
+gain = { ratio = ["out", "in"] }
+"#,
+        )
+        .unwrap();
+        let a = Analysis::new(d.network, d.responses).unwrap();
+        let ev = a.evaluator().unwrap();
+        let grid = Grid::log(100.0, 1e5, 20.0).unwrap();
+        let freqs = grid.points();
+        let mut ws = ev.workspace();
+        let values: Vec<_> = ev
+            .at_many(&mut ws, &freqs, false)
+            .unwrap()
+            .iter()
+            .map(|p| p.value)
+            .collect();
+        let trace = Trace::from_values(&values, None);
+        let pts = Points::new(&grid, &trace);
+        let pz = crate::poles::pole_zero(&a, 0, Some(2.0 * PI * 1e4)).unwrap();
+        let mut probe = Refiner::new(&ev, 0);
+        let skeleton = Skeleton::find(&mut probe, &pts, Some(&pz)).unwrap();
+        let f0 = 1.0 / (2.0 * PI * (1e-3f64 * 1e-6).sqrt());
+        let peaks: Vec<(f64, f64)> = skeleton.of_kind(true).collect();
+        assert_eq!(peaks.len(), 1, "{peaks:?}");
+        assert!(
+            (peaks[0].0 / f0 - 1.0).abs() < 1e-11,
+            "{peaks:?} against {f0}"
+        );
+        assert!(peaks[0].1.abs() < 1e-9, "{peaks:?}");
+        // What the skeleton must spend besides refining: the auxiliary grid and the scan.
+        let (slo, shi) = pz.span().unwrap();
+        let (lo, hi) = (
+            100.0f64.max(slo / (2.0 * PI) / 10.0),
+            1e5f64.min(shi / (2.0 * PI) * 10.0),
+        );
+        let aux = ((hi / lo).log10() * AUX_PER_DECADE).ceil() as usize + 1;
+        let scans: usize = pz
+            .seeds(0.5)
+            .iter()
+            .map(|&(f, q, _)| local_scan(f, q, 100.0, 1e5).len())
+            .sum();
+        assert!(scans > 0 && aux > 2, "{scans} {aux}");
+        // One refinement of the grid's bracket (its highest point and the two beside it).
+        let k = (1..freqs.len() - 1)
+            .max_by(|&i, &j| trace.db[i].total_cmp(&trace.db[j]))
+            .unwrap();
+        let mut one = Refiner::new(&ev, 0);
+        let f = one
+            .extremum(freqs[k - 1], freqs[k], freqs[k + 1], true)
+            .unwrap();
+        one.db(f).unwrap();
+        assert!(one.solves >= 6, "{}", one.solves);
+        assert!(
+            probe.solves <= aux + scans + one.solves,
+            "{} solves against {aux} + {scans} + {}",
+            probe.solves,
+            one.solves
+        );
+    }
 
     /// The prominences of a small sequence, against the definition worked by hand (the
     /// one `scipy.signal.peak_prominences` documents): 3 stands 2 above the higher base

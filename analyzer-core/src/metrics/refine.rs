@@ -376,7 +376,23 @@ impl<'e, 'a> Refiner<'e, 'a> {
         hi: Hertz,
         peak: bool,
     ) -> Result<Hertz, AnalysisError> {
-        let (slo, shi) = (self.slope(lo)?, self.slope(hi)?);
+        self.extremum_from(lo, mid, hi, peak, None)
+    }
+
+    /// [`Refiner::extremum`], given the slopes at `lo` and `hi` when the caller has them
+    /// (from [`Refiner::slopes`], which gives the bits a probe there would).
+    pub fn extremum_from(
+        &mut self,
+        lo: Hertz,
+        mid: Hertz,
+        hi: Hertz,
+        peak: bool,
+        ends: Option<(f64, f64)>,
+    ) -> Result<Hertz, AnalysisError> {
+        let (slo, shi) = match ends {
+            Some(s) => s,
+            None => (self.slope(lo)?, self.slope(hi)?),
+        };
         if (slo > 0.0) != (shi > 0.0) && slo != 0.0 && shi != 0.0 {
             let u = brent_root(
                 |u: f64| self.slope(u.exp()),
