@@ -701,13 +701,17 @@ impl SpreadState {
             }
         }
         // Each statistic takes the block's values in one call (see `Stat::add_all`): the
-        // k-th statistic of a column gets element k of each outcome's vector `of(o)`.
+        // k-th statistic of a column gets element k of each outcome's vector `of(o)` (the
+        // outcomes without one skipped), gathered from the rows found once per column.
         let (mut xs, mut scratch) = (Vec::with_capacity(block.len()), Vec::new());
+        let mut rows: Vec<&[f64]> = Vec::with_capacity(block.len());
         let mut column = |stats: &mut dyn Iterator<Item = &mut Stat>,
                           of: &dyn Fn(&Outcome) -> Option<&Vec<f64>>| {
+            rows.clear();
+            rows.extend(block.iter().filter_map(|o| of(o).map(Vec::as_slice)));
             for (k, s) in stats.enumerate() {
                 xs.clear();
-                xs.extend(block.iter().filter_map(|o| of(o).and_then(|v| v.get(k))));
+                xs.extend(rows.iter().filter_map(|v| v.get(k)));
                 s.add_all(&xs, &mut scratch);
             }
         };

@@ -174,6 +174,19 @@ impl PartialEq for Sketch {
 /// Empty bins kept on each side when a sketch's buffer is (re)made.
 const SLACK: i64 = 32;
 
+/// The base-level bins of `xs` that the sketch can hold, into `out` (cleared first). Also
+/// compiled for AVX2 (picked at run time, as the stack kernel is): `floor` is one instruction
+/// there and a call into libm on the baseline; same bits on either.
+#[multiversion::multiversion(targets("x86_64+avx2+fma"))]
+fn base_indices(sketch: &Sketch, xs: &[f64], out: &mut Vec<i64>) {
+    out.clear();
+    for &x in xs {
+        if let Some(k) = sketch.base_index(x) {
+            out.push(k);
+        }
+    }
+}
+
 impl Sketch {
     /// An empty sketch of the given scale, anchored at `anchor` (the nominal value).
     pub fn new(scale: Scale, anchor: f64) -> Self {
@@ -238,12 +251,14 @@ impl Sketch {
         self.hi = hi;
     }
 
+    #[inline(always)]
     fn width0(&self) -> f64 {
         match self.scale {
             Scale::Linear(w) | Scale::Log(w) => w,
         }
     }
 
+    #[inline(always)]
     fn coordinate(&self, x: f64) -> Option<f64> {
         let u = match self.scale {
             Scale::Linear(_) => x,
@@ -255,6 +270,7 @@ impl Sketch {
 
     /// The base-level bin of a value (None for values the scale cannot hold: non-finite,
     /// or not positive on a log scale).
+    #[inline(always)]
     fn base_index(&self, x: f64) -> Option<i64> {
         let u = self.coordinate(x)?;
         let k = ((u - self.anchor) / self.width0()).floor();
@@ -279,8 +295,7 @@ impl Sketch {
     /// of many scattered bins overlap instead of waiting on each other's branches.
     /// `scratch` is a buffer the caller keeps between calls.
     pub fn add_all(&mut self, xs: &[f64], scratch: &mut Vec<i64>) {
-        scratch.clear();
-        scratch.extend(xs.iter().filter_map(|&x| self.base_index(x)));
+        base_indices(self, xs, scratch);
         let (Some(&low), Some(&high)) = (scratch.iter().min(), scratch.iter().max()) else {
             return;
         };
