@@ -21,9 +21,12 @@
 //! The eigenvalues come from a shifted and inverted standard eigenproblem: on the scaled
 //! pencil `A + λB`, with a real shift σ where `A + σB` is regular, the eigenvalues μ of
 //! `(A + σB)⁻¹B` give `λ = σ − 1/μ`, and μ = 0 are the infinite eigenvalues MNA pencils have
-//! many of (every branch row without a `C` term). faer's LU and its standard eigensolver do
-//! the work (its generalized QZ, tried first, left eigenvalues unset without eigenvectors and
-//! took seconds with them on MNA pencils of 90 unknowns). Frequency is measured in units of
+//! many of (every branch row without a `C` term). Columns of `B` that are zero (unknowns no
+//! capacitor or inductor touches) are zero columns of `(A + σB)⁻¹B` too, whose eigenvalues
+//! are then those of the square block on the other columns and exact zeros: the eigensolver
+//! works on that block alone (half the order on a ladder). faer's LU and its standard
+//! eigensolver do the work (its generalized QZ, tried first, left eigenvalues unset without
+//! eigenvectors and took seconds with them on MNA pencils of 90 unknowns). Frequency is measured in units of
 //! `ω_s` (the sweep's geometric centre), and rows and columns are equilibrated by powers of
 //! two first, which changes no eigenvalue but puts entries as different as 1/R ≈ 1e-4 S,
 //! ωC ≈ 1e-9 and an op-amp's 1e5 on one footing. A root of the scaled pencil is
@@ -56,7 +59,9 @@ use std::f64::consts::PI;
 /// Largest system (unknowns) whose poles and zeros are computed: a response's two dense
 /// eigenproblems (its numerator's and denominator's bordered pencils) took 0.97 s at 753
 /// unknowns on the 2-core CI machine, 0.51 s at 603 and 0.11 s at 303
-/// (`cargo bench -p analyzer-core --bench poles`, 2026-12-03).
+/// (`cargo bench -p analyzer-core --bench poles`, 2026-12-03); with the eigensolver on the
+/// storage columns alone (2026-12-04) 0.25 s at 603 and 0.06 s at 303. The limit was left
+/// where it was (it decides which designs get a pole table).
 pub const MAX_UNKNOWNS: usize = 750;
 
 /// Relative distance within which a pole and a zero cancel.

@@ -303,8 +303,8 @@ mod tests {
     /// f0 = 1/(2π√(LC)) = 5,032.92 Hz at 0 dB, Q = √(L/C)/R = 3.16 (closed form). The sweep's
     /// grid, the auxiliary grid over the poles and the scan around the pole pair all bracket
     /// that peak; it is refined once, so the skeleton costs one refinement beside the
-    /// auxiliary grid and the scan (a refinement is a dozen solves: refining it three times
-    /// costs two dozen more).
+    /// auxiliary grid and the scan (55 solves here; refining it again from the other two
+    /// brackets took 62).
     #[test]
     fn a_peak_bracketed_three_ways_is_refined_once() {
         let d = crate::design::parse(
