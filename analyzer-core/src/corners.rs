@@ -72,7 +72,7 @@ pub fn worst_case(
         let mut cands: Vec<f64> = grid.points().into_iter().filter(inside).collect();
         cands.extend([limit.from, limit.to, check.worst_at_hz]);
         if let Some(f) = nominal.figures.get(r) {
-            cands.extend(f.extrema_hz.iter().copied().filter(inside));
+            cands.extend(f.extrema.iter().map(|e| e.0).filter(inside));
         }
         cands.retain(|f| *f > 0.0 || grid.has_dc());
         // (predicted margin, deviations) per candidate and bound.

@@ -448,3 +448,34 @@ fn no_sampled_board_is_worse_than_the_worst_case_corner() {
         assert!(c.margin_db < c.nominal_margin_db);
     }
 }
+
+#[test]
+fn a_floor_is_checked_at_its_band_edge_on_or_off_the_grid() {
+    // |H| = 1/√(1 + (ωRC)²) of the RC low-pass (closed form) falls with frequency, so a
+    // floor's worst margin is at the band's upper edge, whether that edge is a grid point
+    // (the sweep's end, whose grid value stands for it) or between grid points (probed).
+    let (analysis, grid) = rc("1%", "1%");
+    let ev = analysis.evaluator().unwrap();
+    let opts = [MetricOptions::default()];
+    for to in [1e6, 123_456.0] {
+        let limit = Limit {
+            name: "floor".into(),
+            response: "gain".into(),
+            from: 100.0,
+            to,
+            min_db: Some(-60.0),
+            max_db: None,
+        };
+        let a = analyzer_core::metrics::assess(&ev, &grid, &opts, &[limit]).unwrap();
+        let c = &a.checks[0];
+        let w = 2.0 * std::f64::consts::PI * to;
+        let db = -10.0 * (1.0 + (w * 4.7e3 * 22e-9).powi(2)).log10();
+        assert_eq!(c.worst_at_hz, to);
+        assert!(
+            (c.worst_margin_db - (db + 60.0)).abs() < 1e-9,
+            "{to}: {} vs {}",
+            c.worst_margin_db,
+            db + 60.0
+        );
+    }
+}

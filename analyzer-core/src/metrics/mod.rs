@@ -221,9 +221,10 @@ pub struct Figures {
     pub poles: PoleTable,
     /// Noise figures (noise responses only).
     pub noise: Option<crate::noise::NoiseFigures>,
-    /// Every refined extremum in the sweep, however small (limits are checked there).
+    /// Every refined extremum in the sweep, however small, as (frequency, dB): limits are
+    /// checked there, with the value the refinement found (a probe there gives the same).
     #[serde(skip)]
-    pub extrema_hz: Vec<Hertz>,
+    pub extrema: Vec<(Hertz, f64)>,
 }
 
 /// A magnitude limit: the response must stay within `[min_db, max_db]` over `[from, to]`.
@@ -267,7 +268,8 @@ pub fn check_limit(
     figures: &Figures,
     limit: &Limit,
 ) -> Result<LimitResult, AnalysisError> {
-    let mut probe = Refiner::new(ev, index);
+    // Made only if an edge is to be probed (a workspace each).
+    let mut probe = None;
     let inside = |f: f64| f >= limit.from && f <= limit.to;
     let mut worst = (f64::INFINITY, limit.from);
     let mut consider = |db: f64, f: f64| {
@@ -285,23 +287,27 @@ pub fn check_limit(
             }
         }
     };
+    // A band edge on a grid point has been considered with the grid's value, which is the
+    // value a probe there gives (the same solve, bit for bit): not probed again.
+    let mut on_grid = (false, false);
     for (k, &db) in trace.db.iter().enumerate().take(grid.len()) {
         let f = grid.at(k);
         if inside(f) {
             consider(db, f);
+            on_grid.0 |= f == limit.from;
+            on_grid.1 |= f == limit.to;
         }
     }
-    let mut freqs: Vec<f64> = figures
-        .extrema_hz
-        .iter()
-        .copied()
-        .filter(|f| inside(*f))
-        .collect();
-    freqs.push(limit.from);
-    freqs.push(limit.to);
-    for f in freqs {
-        let db = probe.db(f)?;
-        consider(db, f);
+    for &(f, db) in &figures.extrema {
+        if inside(f) {
+            consider(db, f);
+        }
+    }
+    for (f, seen) in [(limit.from, on_grid.0), (limit.to, on_grid.1)] {
+        if !seen {
+            let db = probe.get_or_insert_with(|| Refiner::new(ev, index)).db(f)?;
+            consider(db, f);
+        }
     }
     Ok(LimitResult {
         limit: limit.clone(),
@@ -511,7 +517,7 @@ pub fn figures(
         margins: None,
         poles,
         noise: None,
-        extrema_hz: Vec::new(),
+        extrema: Vec::new(),
     };
     let Some(range) = pts.range() else {
         return Ok(out);
@@ -525,7 +531,7 @@ pub fn figures(
 
     // Extrema: refined turning points of the grid and of the pole/zero seeds.
     let skeleton = Skeleton::find(&mut probe, &pts, pz)?;
-    out.extrema_hz = skeleton.refined().map(|e| e.0).collect();
+    out.extrema = skeleton.refined().collect();
     let extra: Vec<(f64, f64)> = skeleton.refined().collect();
     let all_pts = || merged(pts.iter(), &extra);
     let to_unit = |db: f64| 10f64.powf(db / 20.0);
