@@ -114,7 +114,8 @@ impl<const N: usize, const L: usize> LaneVec<N, L> {
 /// of a zero. On the fifth-order ladder (9 unknowns) it took the one-thread throughput from
 /// 277 to 189 ns per point (`cargo bench -p analyzer-core --bench throughput`).
 ///
-/// `G` and `C` are laid out densely once; forming `G + jωC` is a copy and a scaled copy. The
+/// `G` and `C` are laid out densely once; forming `G + jωC` copies (and scales) the pattern's
+/// entries alone, the others being zeroed only as the elimination brings them in. The
 /// residual check runs over the sparse pattern in the system's order, matching
 /// [`solve_checked`](super::solve_checked) bit for bit.
 pub struct LaneLu<const N: usize, const L: usize> {
