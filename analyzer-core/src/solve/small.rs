@@ -96,6 +96,18 @@ impl<const N: usize, const L: usize> LaneVec<N, L> {
     }
 }
 
+/// The set bits of a row or column mask, lowest first.
+#[inline(always)]
+fn bits(mut mask: u32) -> impl Iterator<Item = usize> {
+    std::iter::from_fn(move || {
+        (mask != 0).then(|| {
+            let j = mask.trailing_zeros() as usize;
+            mask &= mask - 1;
+            j
+        })
+    })
+}
+
 /// Complex LU with partial pivoting on N×N stack arrays, for L frequencies at once.
 ///
 /// Every entry holds L lanes (one per frequency) with real and imaginary parts in separate
@@ -209,10 +221,7 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
         // zeroed matrix would hold and the arithmetic is the same.
         let mut rows = self.pattern_rows;
         for (i, &row) in rows.iter().enumerate() {
-            let mut m = row;
-            while m != 0 {
-                let j = m.trailing_zeros() as usize;
-                m &= m - 1;
+            for j in bits(row) {
                 re[i][j] = [self.g[i][j]; L];
                 for l in 0..L {
                     im[i][j][l] = omega[l] * self.c[i][j];
@@ -285,10 +294,7 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
                         // either's entries (zeros where a row had none).
                         let both = rows[k] | rows[p];
                         for r in [k, p] {
-                            let mut m = both & !rows[r];
-                            while m != 0 {
-                                let j = m.trailing_zeros() as usize;
-                                m &= m - 1;
+                            for j in bits(both & !rows[r]) {
                                 re[r][j] = [0.0; L];
                                 im[r][j] = [0.0; L];
                             }
@@ -329,11 +335,9 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
             let upper = rows[k] & !(bit | (bit - 1));
             let mut cols = [0usize; N];
             let mut ncols = 0;
-            let mut m = upper;
-            while m != 0 {
-                cols[ncols] = m.trailing_zeros() as usize;
+            for (c, j) in cols.iter_mut().zip(bits(upper)) {
+                *c = j;
                 ncols += 1;
-                m &= m - 1;
             }
             let cols = &cols[..ncols];
             for (i, (rr, ri)) in re_rest.iter_mut().zip(im_rest.iter_mut()).enumerate() {
@@ -354,10 +358,7 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
                 if !any {
                     continue;
                 }
-                let mut fill = upper & !*row;
-                while fill != 0 {
-                    let j = fill.trailing_zeros() as usize;
-                    fill &= fill - 1;
+                for j in bits(upper & !*row) {
                     rr[j] = [0.0; L];
                     ri[j] = [0.0; L];
                 }
@@ -375,10 +376,8 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
         self.lu_rows = rows;
         self.lu_cols = [0; N];
         for (i, &r) in rows.iter().enumerate() {
-            let mut m = r;
-            while m != 0 {
-                self.lu_cols[m.trailing_zeros() as usize] |= 1 << i;
-                m &= m - 1;
+            for j in bits(r) {
+                self.lu_cols[j] |= 1 << i;
             }
         }
         match failed
@@ -407,10 +406,7 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
         // most the sign of a zero sum); columns in ascending order as in a dense pass.
         for i in 1..N {
             let (mut sr, mut si) = (y.re[i], y.im[i]);
-            let mut m = self.lu_rows[i] & ((1u32 << i) - 1);
-            while m != 0 {
-                let j = m.trailing_zeros() as usize;
-                m &= m - 1;
+            for j in bits(self.lu_rows[i] & ((1u32 << i) - 1)) {
                 for l in 0..L {
                     sr[l] -= re[i][j][l] * y.re[j][l] - im[i][j][l] * y.im[j][l];
                     si[l] -= re[i][j][l] * y.im[j][l] + im[i][j][l] * y.re[j][l];
@@ -421,10 +417,7 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
         }
         for i in (0..N).rev() {
             let (mut sr, mut si) = (y.re[i], y.im[i]);
-            let mut m = self.lu_rows[i] & !((2u32 << i) - 1);
-            while m != 0 {
-                let j = m.trailing_zeros() as usize;
-                m &= m - 1;
+            for j in bits(self.lu_rows[i] & !((2u32 << i) - 1)) {
                 for l in 0..L {
                     sr[l] -= re[i][j][l] * y.re[j][l] - im[i][j][l] * y.im[j][l];
                     si[l] -= re[i][j][l] * y.im[j][l] + im[i][j][l] * y.re[j][l];
@@ -446,10 +439,7 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
         let mut z = *v;
         for i in 0..N {
             let (mut sr, mut si) = (z.re[i], z.im[i]);
-            let mut m = self.lu_cols[i] & ((1u32 << i) - 1);
-            while m != 0 {
-                let j = m.trailing_zeros() as usize;
-                m &= m - 1;
+            for j in bits(self.lu_cols[i] & ((1u32 << i) - 1)) {
                 for l in 0..L {
                     sr[l] -= re[j][i][l] * z.re[j][l] - im[j][i][l] * z.im[j][l];
                     si[l] -= re[j][i][l] * z.im[j][l] + im[j][i][l] * z.re[j][l];
@@ -463,10 +453,7 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
         }
         for i in (0..N).rev() {
             let (mut sr, mut si) = (z.re[i], z.im[i]);
-            let mut m = self.lu_cols[i] & !((2u32 << i) - 1);
-            while m != 0 {
-                let j = m.trailing_zeros() as usize;
-                m &= m - 1;
+            for j in bits(self.lu_cols[i] & !((2u32 << i) - 1)) {
                 for l in 0..L {
                     sr[l] -= re[j][i][l] * z.re[j][l] - im[j][i][l] * z.im[j][l];
                     si[l] -= re[j][i][l] * z.im[j][l] + im[j][i][l] * z.re[j][l];
