@@ -599,6 +599,11 @@ struct Buffers {
     /// Noise: the output read-out in every lane, and the adjoint solutions.
     noise_rhs: Vec<Complex64>,
     ys: Vec<Complex64>,
+    /// Per response, whether it is evaluated (all, unless the workspace serves one
+    /// response: [`Evaluator::workspace_for`]); the others' points are left as they were.
+    wanted: Vec<bool>,
+    /// Per excitation, whether a wanted response reads its solution.
+    solved: Vec<bool>,
 }
 
 /// The solver and buffers one group of frequencies is evaluated with.
@@ -636,11 +641,47 @@ impl<'a> Evaluator<'a> {
                 dxs: vec![vec![Complex64::default(); a.sys.n * lanes]; a.rhs.len()],
                 noise_rhs: Vec::new(),
                 ys: Vec::new(),
+                wanted: vec![true; a.specs.len()],
+                solved: vec![true; a.rhs.len()],
             },
             points: vec![Point::default(); a.specs.len()],
             regrouped: 0,
             helpers: Vec::new(),
         }
+    }
+
+    /// A workspace that evaluates response `index` alone (and the ratio a noise response is
+    /// referred to): the others' points are not computed, so a response that cannot be
+    /// evaluated at some frequency (an impedance that is infinite at DC) does not fail
+    /// another's evaluation there, and excitations no wanted response reads are not solved.
+    pub fn workspace_for(&self, index: usize) -> Workspace<'a> {
+        let a = self.analysis;
+        let mut ws = self.workspace();
+        let mut wanted = vec![false; a.specs.len()];
+        if let Some(w) = wanted.get_mut(index) {
+            *w = true;
+        }
+        if let Some(j) = a
+            .resolved
+            .get(index)
+            .and_then(|r| r.noise.as_deref())
+            .and_then(|n| n.referred_to)
+        {
+            if let Some(w) = wanted.get_mut(j) {
+                *w = true;
+            }
+        }
+        let mut solved = vec![false; a.rhs.len()];
+        for (r, _) in a.resolved.iter().zip(&wanted).filter(|(_, &w)| w) {
+            if r.noise.is_none() {
+                if let Some(s) = solved.get_mut(r.excitation) {
+                    *s = true;
+                }
+            }
+        }
+        ws.buf.wanted = wanted;
+        ws.buf.solved = solved;
+        ws
     }
 
     /// The workspace's one-frequency solver, made on first use.
@@ -659,12 +700,14 @@ impl<'a> Evaluator<'a> {
             .analysis
             .excitations
             .iter()
-            .position(|e| *e == Excitation::Design)?;
+            .position(|e| *e == Excitation::Design)
+            .filter(|&e| ws.buf.solved.get(e) != Some(&false))?;
         ws.buf.xs.get(e).and_then(|x| x.get(..self.analysis.sys.n))
     }
 
-    /// All responses at frequency `f` (Hz), with ω-derivatives when `derivatives` is set.
-    /// Fails, naming the frequency, when the system is singular there or the solution fails
+    /// All responses at frequency `f` (Hz), with ω-derivatives when `derivatives` is set
+    /// (the wanted one alone on a [`Evaluator::workspace_for`] workspace). Fails, naming the
+    /// frequency, when the system is singular there or the solution fails
     /// its residual check. The slice is valid until the next call on this workspace.
     pub fn at<'w>(
         &self,
@@ -718,7 +761,10 @@ impl<'a> Evaluator<'a> {
             let (head, tail) = points.split_at_mut(per * nr);
             let mut helpers = std::mem::take(&mut ws.helpers);
             while helpers.len() < rest.len().div_ceil(per) {
-                helpers.push(self.workspace());
+                let mut helper = self.workspace();
+                helper.buf.wanted.clone_from(&ws.buf.wanted);
+                helper.buf.solved.clone_from(&ws.buf.solved);
+                helpers.push(helper);
             }
             let (first, others) = rayon::join(
                 || self.one_by_one(ws, mine, derivatives, head),
@@ -834,6 +880,9 @@ impl<'a> Evaluator<'a> {
             },
         })?;
         for (e, rhs) in a.rhs.iter().enumerate() {
+            if g.buf.solved.get(e) == Some(&false) {
+                continue;
+            }
             let (Some(x), Some(dx)) = (g.buf.xs.get_mut(e), g.buf.dxs.get_mut(e)) else {
                 continue;
             };
@@ -846,7 +895,7 @@ impl<'a> Evaluator<'a> {
         for (lane, (&omega, slot)) in omegas.iter().zip(out.chunks_mut(nr.max(1))).enumerate() {
             let span = lane * n..(lane + 1) * n;
             for ((k, r), point) in a.resolved.iter().enumerate().zip(slot.iter_mut()) {
-                if r.noise.is_some() {
+                if r.noise.is_some() || g.buf.wanted.get(k) == Some(&false) {
                     continue;
                 }
                 let x = g.buf.xs[r.excitation].get(span.clone()).unwrap_or_default();
@@ -868,6 +917,9 @@ impl<'a> Evaluator<'a> {
             let Some(plan) = r.noise.as_deref() else {
                 continue;
             };
+            if g.buf.wanted.get(k) == Some(&false) {
+                continue;
+            }
             let count = omegas.len();
             g.buf.noise_rhs.clear();
             for _ in 0..count {

@@ -196,24 +196,48 @@ g = {{ ratio = ["out", "in"] }}"#,
     assert!(notch.magnitude_db < -60.0);
 }
 
-#[test]
-fn rc_group_delay_is_rc_over_one_plus_omega_rc_squared() {
-    // Closed form: H = 1/(1 + jωRC), τ = RC/(1 + (ωRC)²).
-    let (r, c) = (1e3, 1e-6);
-    let a = analysis(
-        r#"[parts]
+/// A 1 kΩ, 1 µF low-pass driven from a voltage source; response 0 is its ratio.
+const RC_LOW_PASS: &str = r#"[parts]
 V1 = { voltage = "1", between = ["in", "gnd"] }
 R1 = { resistor = "1k", between = ["in", "out"] }
 C1 = { capacitor = "1u", between = ["out", "gnd"] }
 [responses]
-g = { ratio = ["out", "in"] }"#,
-    );
+g = { ratio = ["out", "in"] }"#;
+
+#[test]
+fn rc_group_delay_is_rc_over_one_plus_omega_rc_squared() {
+    // Closed form: H = 1/(1 + jωRC), τ = RC/(1 + (ωRC)²).
+    let (r, c) = (1e3, 1e-6);
+    let a = analysis(RC_LOW_PASS);
     for f in [1.0, 100.0, 159.154_943, 1e4] {
         let w = 2.0 * PI * f;
         let tau = reference_suite::at(&a, f)[0].group_delay();
         let expect = r * c / (1.0 + (w * r * c).powi(2));
         assert!(rel(tau, expect) < 1e-12, "{f} Hz");
     }
+}
+
+/// A figure of one response never depends on another's failing: the input impedance of an
+/// RC low-pass is infinite at DC (no current flows: a division by zero there), yet the
+/// ratio's DC gain and its group delay are still taken at DC: 0 dB and τ(0) = RC (closed
+/// form, H = 1/(1 + jωRC)), not at the grid's first point, where τ = RC/(1 + (ωRC)²) is
+/// 1e-4 smaller.
+#[test]
+fn an_impedance_infinite_at_dc_leaves_the_ratio_figures_at_dc() {
+    let (r, c) = (1e3, 1e-6);
+    let a = analysis(&format!(
+        "{RC_LOW_PASS}\nzin = {{ impedance = [\"in\", \"gnd\"] }}"
+    ));
+    let lo = 1e-2 / (2.0 * PI * r * c);
+    let grid = Grid::log(lo, 1e5, 20.0).unwrap();
+    let ev = a.evaluator().unwrap();
+    let mut ws = ev.workspace();
+    assert!(ev.at(&mut ws, 0.0, true).is_err(), "zin is finite at DC");
+    let f = figures_of(&a, &grid, 0, &MetricOptions::default());
+    assert_eq!(f.group_delay_hz, Some(0.0));
+    let tau = f.group_delay_s.unwrap();
+    assert!(rel(tau, r * c) < 1e-12, "{tau} vs {}", r * c);
+    assert!(f.dc_db.unwrap().abs() < 1e-12, "{:?}", f.dc_db);
 }
 
 #[test]

@@ -250,7 +250,7 @@ impl<'e, 'a> Refiner<'e, 'a> {
     pub fn new(ev: &'e Evaluator<'a>, index: usize) -> Self {
         Refiner {
             ev,
-            ws: ev.workspace(),
+            ws: ev.workspace_for(index),
             index,
             solves: 0,
         }
