@@ -505,8 +505,14 @@ fn readout_zeros(
 /// Whether read-out `q` vanishes at two frequencies away from any special point (0.37·ω_s
 /// and 2.9·ω_s): |q·x + k| within 1e-12 of the sum of the magnitudes it is made of. The
 /// network is solved on its own solver path (a network singular there does not vanish).
-fn vanishes(sys: &System, rhs: &[Complex64], q: &Readout, design: bool, omega_s: f64) -> bool {
-    let Ok(plan) = crate::solve::SolverPlan::new(sys, crate::solve::SolverKind::Auto) else {
+fn vanishes(
+    analysis: &Analysis,
+    rhs: &[Complex64],
+    q: &Readout,
+    design: bool,
+    omega_s: f64,
+) -> bool {
+    let Ok(plan) = analysis.plan() else {
         return false;
     };
     let mut solver = plan.make();
@@ -576,7 +582,8 @@ pub fn pole_zero(
         Some(d) => readout_zeros(sys, r.rhs, d, r.design, w)?,
         None => roots(Pencil::new(sys, None), w)?,
     };
-    let identically_zero = num.indeterminate > 0 || vanishes(sys, r.rhs, r.numerator, r.design, w);
+    let identically_zero =
+        num.indeterminate > 0 || vanishes(analysis, r.rhs, r.numerator, r.design, w);
     if identically_zero {
         return Ok(PoleZero {
             identically_zero,
@@ -655,7 +662,7 @@ fn asymptotic_slope(
     }
     let w = (top * 1e3).min(omega_s / INFINITE_TOL);
     let ev = analysis.evaluator().ok()?;
-    let mut ws = ev.workspace();
+    let mut ws = ev.workspace_for(index);
     let p = ev
         .at(&mut ws, w / (2.0 * PI), true)
         .ok()?
@@ -780,7 +787,7 @@ diff = {{ ratio = [["a", "b"], "in"] }}
             let a = Analysis::new(d.network, d.responses).unwrap();
             let r = a.readout(0).unwrap();
             let w = 2.0 * PI * 1e3;
-            let zero = vanishes(a.system(), r.rhs, r.numerator, r.design, w);
+            let zero = vanishes(&a, r.rhs, r.numerator, r.design, w);
             (zero, pole_zero(&a, 0, Some(w)).unwrap())
         };
         let (zero, balanced) = bridge("2k");

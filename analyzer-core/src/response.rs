@@ -14,13 +14,14 @@
 
 use crate::network::{Network, NodeId, Param, PartId, PartKind};
 use crate::noise::{Breakdown, NoisePlan};
-use crate::solve::{LaneSolver, SolveFailure, SolverKind, SolverPlan, LANES};
+use crate::solve::{LaneSolver, Singular, SolveFailure, SolverKind, SolverPlan, LANES};
 use crate::stamp::{Readout, System};
 use crate::topology::{self, TopologyError};
 use crate::units::{format_eng, Hertz};
 use num_complex::Complex64;
 use rayon::prelude::*;
 use std::f64::consts::PI;
+use std::sync::{Arc, OnceLock};
 
 /// One side of a ratio.
 #[derive(Clone, Debug, PartialEq, Eq)]
@@ -293,6 +294,10 @@ pub struct Analysis {
     excitations: Vec<Excitation>,
     rhs: Vec<Vec<Complex64>>,
     solver: SolverKind,
+    /// The stack kernel's elimination order, chosen by the first plan made for this
+    /// analysis and kept by every analysis made from it with other values
+    /// ([`Analysis::with_values`]), so a study's samples make no trial factorisations.
+    order: OnceLock<Arc<[usize]>>,
 }
 
 impl Analysis {
@@ -319,7 +324,18 @@ impl Analysis {
         changes: &[(crate::network::PartId, crate::network::Param, f64)],
     ) -> Result<Analysis, AnalysisError> {
         let net = self.net.with_values(changes)?;
-        Ok(Self::assemble(net, self.specs.clone())?.with_solver(self.solver))
+        let changed = Self::assemble(net, self.specs.clone())?.with_solver(self.solver);
+        if let Some(order) = self.order.get() {
+            let _ = changed.order.set(order.clone());
+        }
+        Ok(changed)
+    }
+
+    /// The solver plan for this analysis (its path, symbolic work and elimination order).
+    pub fn plan(&self) -> Result<SolverPlan<'_>, Singular> {
+        let plan = SolverPlan::with_order(&self.sys, self.solver, self.order.get().cloned())?;
+        let _ = self.order.set(plan.elimination_order());
+        Ok(plan)
     }
 
     fn assemble(net: Network, specs: Vec<ResponseSpec>) -> Result<Self, AnalysisError> {
@@ -496,11 +512,15 @@ impl Analysis {
             excitations,
             rhs,
             solver: SolverKind::Auto,
+            order: OnceLock::new(),
         })
     }
 
     /// Chooses the solver path (default: by size).
     pub fn with_solver(mut self, kind: SolverKind) -> Self {
+        if kind != self.solver {
+            self.order = OnceLock::new();
+        }
         self.solver = kind;
         self
     }
@@ -553,12 +573,11 @@ impl Analysis {
 
     /// Prepares the solver (the sparse path does its symbolic analysis here).
     pub fn evaluator(&self) -> Result<Evaluator<'_>, AnalysisError> {
-        let plan =
-            SolverPlan::new(&self.sys, self.solver).map_err(|s| AnalysisError::Singular {
-                frequency: 0.0,
-                blame: self.sys.describe_unknown(&self.net, s.column),
-                hint: " (structurally: no pattern of entries makes the matrix regular)".into(),
-            })?;
+        let plan = self.plan().map_err(|s| AnalysisError::Singular {
+            frequency: 0.0,
+            blame: self.sys.describe_unknown(&self.net, s.column),
+            hint: " (structurally: no pattern of entries makes the matrix regular)".into(),
+        })?;
         Ok(Evaluator {
             analysis: self,
             plan,

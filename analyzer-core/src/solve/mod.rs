@@ -4,8 +4,8 @@
 //!
 //! * [`LaneLu`] (`small`): complex LU with partial pivoting on fixed-size stack arrays, for
 //!   the tiny systems most filters produce (up to [`SMALL_MAX`] unknowns), eight frequencies
-//!   per pass ([`LaneSolver`]). faer's per-call overhead dominates at these sizes; this kernel
-//!   has none.
+//!   per pass ([`LaneSolver`]), in a fill-reducing elimination order chosen once per plan.
+//!   faer's per-call overhead dominates at these sizes; this kernel has none.
 //! * [`BandLu`] (`band`): banded LU with partial pivoting after a reverse Cuthill–McKee
 //!   ordering found once per sweep, for ladders, lines and chains of any length.
 //! * [`DenseLu`] (`dense`): faer's dense LU with partial pivoting, factoring in place into a
@@ -34,7 +34,7 @@ pub use sparse::SparseLu;
 
 use crate::stamp::System;
 use num_complex::Complex64;
-use small::{make_small, make_small_lanes};
+use small::{make_small, make_small_lanes, small_order};
 use sparse::SparseShared;
 use std::sync::Arc;
 
@@ -113,6 +113,8 @@ pub struct SolverPlan<'a> {
     kind: SolverKind,
     band: Option<Arc<BandLayout>>,
     sparse: Option<Arc<SparseShared>>,
+    /// The stack kernel's elimination order, chosen at the values the plan was made for.
+    small: Arc<[usize]>,
 }
 
 impl<'a> SolverPlan<'a> {
@@ -123,6 +125,18 @@ impl<'a> SolverPlan<'a> {
     /// and faer's sparse LU otherwise. Fails with [`Singular`] if the pattern is
     /// structurally singular.
     pub fn new(sys: &'a System, kind: SolverKind) -> Result<Self, Singular> {
+        Self::with_order(sys, kind, None)
+    }
+
+    /// [`SolverPlan::new`] with the stack kernel's elimination order given (one found by
+    /// another plan for the same pattern, [`SolverPlan::elimination_order`]) instead of
+    /// chosen by trial factorisations at `sys`'s values; an order of the wrong length is
+    /// chosen afresh.
+    pub fn with_order(
+        sys: &'a System,
+        kind: SolverKind,
+        order: Option<Arc<[usize]>>,
+    ) -> Result<Self, Singular> {
         let n = sys.n;
         let mut band = None;
         let kind = match kind {
@@ -156,11 +170,18 @@ impl<'a> SolverPlan<'a> {
         if kind != SolverKind::Band {
             band = None;
         }
+        let small = match kind {
+            SolverKind::Small => order
+                .filter(|o| o.len() == n)
+                .unwrap_or_else(|| small_order(sys).into()),
+            _ => Arc::from([]),
+        };
         Ok(SolverPlan {
             sys,
             kind,
             band,
             sparse,
+            small,
         })
     }
 
@@ -181,6 +202,7 @@ impl<'a> SolverPlan<'a> {
             kind: self.kind,
             band,
             sparse: self.sparse.clone(),
+            small: self.small.clone(),
         })
     }
 
@@ -189,13 +211,19 @@ impl<'a> SolverPlan<'a> {
         self.kind
     }
 
+    /// The stack kernel's elimination order (the system's unknown at each position; empty
+    /// on the other paths).
+    pub fn elimination_order(&self) -> Arc<[usize]> {
+        self.small.clone()
+    }
+
     /// A fresh solver with its own workspace (one per worker thread).
     pub fn make(&self) -> Box<dyn PointSolver + 'a> {
         let sys = self.sys;
         match (self.kind, &self.band, &self.sparse) {
             (SolverKind::Sparse, _, Some(shared)) => Box::new(SparseLu::new(sys, shared.clone())),
             (SolverKind::Band, Some(layout), _) => Box::new(BandLu::new(layout.clone())),
-            (SolverKind::Small, _, _) => make_small(sys),
+            (SolverKind::Small, _, _) => make_small(sys, &self.small),
             _ => Box::new(DenseLu::new(sys)),
         }
     }
@@ -206,7 +234,7 @@ impl<'a> SolverPlan<'a> {
     pub fn make_lanes(&self, wide: bool) -> Box<dyn LaneSolver + 'a> {
         let sys = self.sys;
         match self.kind {
-            SolverKind::Small => make_small_lanes(sys, wide),
+            SolverKind::Small => make_small_lanes(sys, wide, &self.small),
             _ => Box::new(OneLane::new(sys, self.make())),
         }
     }

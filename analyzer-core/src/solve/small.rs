@@ -8,26 +8,44 @@ use crate::stamp::System;
 use multiversion::multiversion;
 use num_complex::Complex64;
 
-macro_rules! small_dispatch {
-    ($sys:expr, $lanes:literal, $fallback:expr, $($n:literal)*) => {
-        match $sys.n {
-            $($n => Box::new(LaneLu::<$n, $lanes>::new($sys)),)*
+/// `$body` with the const `$N` set to `$n` for each size the kernel is built for (1 to 16),
+/// `$fallback` for any other size.
+macro_rules! by_size {
+    ($n:expr, $N:ident => $body:expr, _ => $fallback:expr) => {
+        by_size!(@ $n, $N, $body, $fallback, 1 2 3 4 5 6 7 8 9 10 11 12 13 14 15 16)
+    };
+    (@ $n:expr, $N:ident, $body:expr, $fallback:expr, $($k:literal)*) => {
+        match $n {
+            $($k => {
+                const $N: usize = $k;
+                $body
+            })*
             _ => $fallback,
         }
     };
 }
 
-pub(super) fn make_small<'a>(sys: &'a System) -> Box<dyn PointSolver + 'a> {
-    small_dispatch!(sys, 1, Box::new(DenseLu::new(sys)), 1 2 3 4 5 6 7 8 9 10 11 12 13 14 15 16)
+/// The elimination order the stack kernel takes for `sys` ([`LaneLu::new`]'s choice), found
+/// once per plan; empty above the kernel's sizes.
+pub(super) fn small_order(sys: &System) -> Vec<usize> {
+    by_size!(sys.n, N => best_order::<N>(sys).to_vec(), _ => Vec::new())
 }
 
-pub(super) fn make_small_lanes<'a>(sys: &'a System, wide: bool) -> Box<dyn LaneSolver + 'a> {
-    let one = || Box::new(OneLane::new(sys, Box::new(DenseLu::new(sys))));
-    if wide {
-        small_dispatch!(sys, 8, one(), 1 2 3 4 5 6 7 8 9 10 11 12 13 14 15 16)
+pub(super) fn make_small<'a>(sys: &'a System, order: &[usize]) -> Box<dyn PointSolver + 'a> {
+    by_size!(sys.n, N => Box::new(LaneLu::<N, 1>::with_order(sys, order)),
+        _ => Box::new(DenseLu::new(sys)))
+}
+
+pub(super) fn make_small_lanes<'a>(
+    sys: &'a System,
+    wide: bool,
+    order: &[usize],
+) -> Box<dyn LaneSolver + 'a> {
+    by_size!(sys.n, N => if wide {
+        Box::new(LaneLu::<N, 8>::with_order(sys, order))
     } else {
-        small_dispatch!(sys, 1, one(), 1 2 3 4 5 6 7 8 9 10 11 12 13 14 15 16)
-    }
+        Box::new(LaneLu::<N, 1>::with_order(sys, order))
+    }, _ => Box::new(OneLane::new(sys, Box::new(DenseLu::new(sys)))))
 }
 
 /// The one-frequency stack kernel: [`LaneLu`] with a single lane.
@@ -46,14 +64,15 @@ impl<const N: usize, const L: usize> LaneVec<N, L> {
         im: [[0.0; L]; N],
     };
 
-    /// Lane-major complex slice (lane l at `l·N ..`) into lanes; missing lanes repeat lane 0.
+    /// Lane-major complex slice (lane l at `l·N ..`, the system's order) into lanes in the
+    /// kernel's `order`; missing lanes repeat lane 0.
     #[inline(always)]
-    fn load(src: &[Complex64], lanes: usize) -> Self {
+    fn load(src: &[Complex64], lanes: usize, order: &[usize; N]) -> Self {
         let mut v = Self::ZERO;
         for l in 0..L {
             let from = if l < lanes { l } else { 0 };
-            for i in 0..N {
-                let z = src.get(from * N + i).copied().unwrap_or_default();
+            for (i, &o) in order.iter().enumerate() {
+                let z = src.get(from * N + o).copied().unwrap_or_default();
                 v.re[i][l] = z.re;
                 v.im[i][l] = z.im;
             }
@@ -61,23 +80,24 @@ impl<const N: usize, const L: usize> LaneVec<N, L> {
         v
     }
 
-    /// The same vector in every lane.
+    /// The same vector (the system's order) in every lane, in the kernel's `order`.
     #[inline(always)]
-    fn broadcast(src: &[Complex64]) -> Self {
+    fn broadcast(src: &[Complex64], order: &[usize; N]) -> Self {
         let mut v = Self::ZERO;
-        for (i, z) in src.iter().take(N).enumerate() {
+        for (i, &o) in order.iter().enumerate() {
+            let z = src.get(o).copied().unwrap_or_default();
             v.re[i] = [z.re; L];
             v.im[i] = [z.im; L];
         }
         v
     }
 
-    /// The first `lanes` lanes into a lane-major complex slice.
+    /// The first `lanes` lanes into a lane-major complex slice in the system's order.
     #[inline(always)]
-    fn store(&self, dst: &mut [Complex64], lanes: usize) {
+    fn store(&self, dst: &mut [Complex64], lanes: usize, order: &[usize; N]) {
         for (l, out) in dst.chunks_exact_mut(N).take(lanes.min(L)).enumerate() {
-            for (i, z) in out.iter_mut().enumerate() {
-                *z = Complex64::new(self.re[i][l], self.im[i][l]);
+            for (i, &o) in order.iter().enumerate() {
+                out[o] = Complex64::new(self.re[i][l], self.im[i][l]);
             }
         }
     }
@@ -108,6 +128,90 @@ fn bits(mut mask: u32) -> impl Iterator<Item = usize> {
     })
 }
 
+/// Minimum-degree order of a graph given as a bit mask of neighbours per vertex (lowest
+/// index first among equals): the vertex of fewest remaining neighbours goes next, and its
+/// neighbours become one clique (the fill its elimination makes).
+fn minimum_degree<const N: usize>(mut adj: [u32; N]) -> [usize; N] {
+    let mut left: u32 = if N >= 32 { u32::MAX } else { (1u32 << N) - 1 };
+    let mut order = [0usize; N];
+    for slot in order.iter_mut() {
+        let v = bits(left)
+            .min_by_key(|&j| ((adj[j] & left).count_ones(), j))
+            .unwrap_or(0);
+        *slot = v;
+        left &= !(1 << v);
+        let clique = adj[v] & left;
+        for u in bits(clique) {
+            adj[u] |= clique & !(1 << u);
+        }
+    }
+    order
+}
+
+/// The elimination orders tried for a pattern (`rows`, a bit per column): the system's own;
+/// minimum degree on the pattern of AᵀA, whose Cholesky factor bounds the pattern of U
+/// whatever rows partial pivoting picks (George and Ng, 1985); and minimum degree on
+/// A + Aᵀ, the better guess when the pivots stay mostly on the diagonal.
+fn candidate_orders<const N: usize>(rows: &[u32; N]) -> [[usize; N]; 3] {
+    let (mut normal, mut sym) = ([0u32; N], *rows);
+    for (i, &r) in rows.iter().enumerate() {
+        for j in bits(r) {
+            normal[j] |= r;
+            sym[j] |= 1 << i;
+        }
+    }
+    for j in 0..N {
+        normal[j] &= !(1 << j);
+        sym[j] &= !(1 << j);
+    }
+    [
+        std::array::from_fn(|i| i),
+        minimum_degree(normal),
+        minimum_degree(sym),
+    ]
+}
+
+/// The order of [`candidate_orders`] whose trial factorisation costs least: one pass of
+/// eight frequencies spread log-evenly over ten times the range of the rows' corner
+/// frequencies Σ|G|/Σ|C| each way, at `sys`'s values, scored by the multiply-adds of the
+/// elimination and of a solve. The first (the system's own) wins ties; a system the trial
+/// cannot factor keeps it.
+fn best_order<const N: usize>(sys: &System) -> [usize; N] {
+    let mut rows = [0u32; N];
+    for &(r, c) in &sys.pattern {
+        if r < N && c < N {
+            rows[r] |= 1 << c;
+        }
+    }
+    let corners = sys
+        .row_abs()
+        .iter()
+        .filter(|&&(g, c)| g > 0.0 && c > 0.0)
+        .map(|&(g, c)| g / c)
+        .filter(|w| w.is_finite() && *w > 0.0);
+    let (lo, hi) = corners.fold((f64::INFINITY, 0.0f64), |(lo, hi), w| {
+        (lo.min(w), hi.max(w))
+    });
+    let (lo, hi) = if lo <= hi {
+        (lo / 10.0, hi * 10.0)
+    } else {
+        (1.0, 1.0)
+    };
+    let omegas: [f64; 8] = std::array::from_fn(|k| lo * (hi / lo).powf(k as f64 / 7.0));
+    let mut best: Option<(u64, [usize; N])> = None;
+    for order in candidate_orders(&rows) {
+        let mut lu = LaneLu::<N, 8>::with_order(sys, &order);
+        if kernel_factor(&mut lu, &omegas).is_err() {
+            continue;
+        }
+        let cost = lu.elimination_cost();
+        if best.is_none_or(|(c, _)| cost < c) {
+            best = Some((cost, order));
+        }
+    }
+    best.map_or_else(|| std::array::from_fn(|i| i), |(_, order)| order)
+}
+
 /// Complex LU with partial pivoting on N×N stack arrays, for L frequencies at once.
 ///
 /// Every entry holds L lanes (one per frequency) with real and imaginary parts in separate
@@ -125,6 +229,13 @@ fn bits(mut mask: u32) -> impl Iterator<Item = usize> {
 /// The entries skipped are exact zeros in every lane, so this too changes at most the sign
 /// of a zero. On the fifth-order ladder (9 unknowns) it took the one-thread throughput from
 /// 277 to 189 ns per point (`cargo bench -p analyzer-core --bench throughput`).
+///
+/// The unknowns are eliminated in an order of their own (`order`, the system's unknown at
+/// each position, rows and columns alike), chosen by [`LaneLu::new`] or given by the plan:
+/// partial pivoting is as stable in any column order, but the fill, and so the work, is
+/// not (on the fifth-order ladder the chosen order halves the elimination's multiply-adds).
+/// Vectors are permuted on the way in and out; the residual check sums in the system's
+/// order as before.
 ///
 /// `G` and `C` are laid out densely once; forming `G + jωC` copies (and scales) the pattern's
 /// entries alone, the others being zeroed only as the elimination brings them in. The
@@ -152,6 +263,8 @@ pub struct LaneLu<const N: usize, const L: usize> {
     lu_rows: [u32; N],
     /// The same by column: bit i of `lu_cols[j]` is bit j of `lu_rows[i]`.
     lu_cols: [u32; N],
+    /// The system's unknown (and equation) at each of the kernel's positions.
+    order: [usize; N],
     sys_norm: Vec<(f64, f64)>,
     /// Column sums of |G| and |C| (the rows of the transpose).
     sys_norm_t: Vec<(f64, f64)>,
@@ -160,12 +273,31 @@ pub struct LaneLu<const N: usize, const L: usize> {
 impl<const N: usize, const L: usize> LaneLu<N, L> {
     /// A solver for `sys`, which must have exactly N unknowns (other entries are ignored).
     pub fn new(sys: &System) -> Self {
+        Self::with_order(sys, &best_order::<N>(sys))
+    }
+
+    /// A solver for `sys` that eliminates its unknowns in `order` (the system's unknown at
+    /// each position; anything but a permutation of 0..N is taken as the natural order).
+    pub fn with_order(sys: &System, order: &[usize]) -> Self {
+        let mut order: [usize; N] = std::array::from_fn(|i| order.get(i).copied().unwrap_or(i));
+        let mut seen = 0u32;
+        for &o in &order {
+            seen |= 1u32.checked_shl(o as u32).unwrap_or(0);
+        }
+        if seen.count_ones() as usize != N || order.iter().any(|&o| o >= N) {
+            order = std::array::from_fn(|i| i);
+        }
+        let mut pos = [0usize; N];
+        for (i, &o) in order.iter().enumerate() {
+            pos[o] = i;
+        }
         let mut g = [[0.0; N]; N];
         let mut c = [[0.0; N]; N];
         let mut entries = Vec::with_capacity(sys.pattern.len());
         let mut pattern_rows = [0u32; N];
         for (k, &(r, col)) in sys.pattern.iter().enumerate() {
             if r < N && col < N {
+                let (r, col) = (pos[r], pos[col]);
                 g[r][col] = sys.g[k];
                 c[r][col] = sys.c[k];
                 entries.push((r, col, sys.g[k], sys.c[k]));
@@ -187,6 +319,7 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
             pattern_rows,
             lu_rows: [0; N],
             lu_cols: [0; N],
+            order,
             sys_norm: sys.row_abs().to_vec(),
             sys_norm_t: sys.col_abs().to_vec(),
         }
@@ -384,11 +517,29 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
             .iter()
             .take(self.active)
             .enumerate()
-            .find_map(|(l, f)| f.map(|column| (l, Singular { column })))
-        {
+            .find_map(|(l, f)| {
+                f.map(|k| {
+                    let column = self.order[k];
+                    (l, Singular { column })
+                })
+            }) {
             Some(e) => Err(e),
             None => Ok(()),
         }
+    }
+
+    /// Multiply-adds per lane of the last factorisation and of one solve with it, from the
+    /// masks of L and U: row i of L meets row k of U for every k in its mask.
+    fn elimination_cost(&self) -> u64 {
+        let upper = |k: usize| (self.lu_rows[k] & !((2u32 << k) - 1)).count_ones() as u64;
+        let mut cost = 0;
+        for (i, &row) in self.lu_rows.iter().enumerate() {
+            cost += row.count_ones() as u64;
+            for k in bits(row & ((1u32 << i) - 1)) {
+                cost += 1 + upper(k);
+            }
+        }
+        cost
     }
 
     /// Solves `A·y = v` into `y`, every lane with its own factorisation; `v` is in natural
@@ -572,9 +723,9 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
         transposed: bool,
     ) -> Result<(), LaneFailure> {
         let b = if transposed {
-            LaneVec::<N, L>::load(rhs, self.active)
+            LaneVec::<N, L>::load(rhs, self.active, &self.order)
         } else {
-            LaneVec::<N, L>::broadcast(rhs)
+            LaneVec::<N, L>::broadcast(rhs, &self.order)
         };
         let (mut x, mut r, mut d) = (LaneVec::ZERO, LaneVec::ZERO, LaneVec::ZERO);
         let solve = |lu: &Self, v: &LaneVec<N, L>, y: &mut LaneVec<N, L>| {
@@ -607,7 +758,7 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
                 }
             }
         }
-        x.store(out, self.active);
+        x.store(out, self.active, &self.order);
         for (lane, &e) in err.iter().enumerate().take(self.active) {
             let finite = (0..N).all(|i| x.re[i][lane].is_finite() && x.im[i][lane].is_finite());
             if e.is_nan() || e > RESIDUAL_LIMIT || !finite {
@@ -623,7 +774,7 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
     /// `dx/dω` per lane, as [`LaneSolver::derivative`].
     #[inline(always)]
     fn derivative_lanes(&self, xs: &[Complex64], out: &mut [Complex64]) {
-        let x = LaneVec::<N, L>::load(xs, self.active);
+        let x = LaneVec::<N, L>::load(xs, self.active, &self.order);
         let (mut d, mut dx) = (LaneVec::ZERO, LaneVec::ZERO);
         self.multiply(&x, &mut d, true);
         for i in 0..N {
@@ -633,7 +784,7 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
             }
         }
         self.solve_lanes(&d, &mut dx);
-        dx.store(out, self.active);
+        dx.store(out, self.active, &self.order);
     }
 }
 
@@ -738,20 +889,20 @@ impl<const N: usize, const L: usize> PointSolver for LaneLu<N, L> {
         if rhs.len() != N {
             return;
         }
-        let v = LaneVec::<N, L>::broadcast(rhs);
+        let v = LaneVec::<N, L>::broadcast(rhs, &self.order);
         let mut y = LaneVec::ZERO;
         kernel_solve_into(self, &v, &mut y);
-        y.store(rhs, 1);
+        y.store(rhs, 1, &self.order);
     }
 
     fn solve_transposed(&mut self, rhs: &mut [Complex64]) {
         if rhs.len() != N {
             return;
         }
-        let v = LaneVec::<N, L>::broadcast(rhs);
+        let v = LaneVec::<N, L>::broadcast(rhs, &self.order);
         let mut y = LaneVec::ZERO;
         kernel_solve_transposed_into(self, &v, &mut y);
-        y.store(rhs, 1);
+        y.store(rhs, 1, &self.order);
     }
 }
 
@@ -908,5 +1059,110 @@ mod tests {
             "no interchange"
         );
         stale_entries_are_never_read::<13>(&sys);
+    }
+
+    /// A star: a current source into a hub joined by a resistor to each of seven nodes,
+    /// each with its own resistor and capacitor to ground. Its matrix is an arrowhead (the
+    /// hub's row and column full, a diagonal elsewhere), the hub first.
+    fn star() -> System {
+        let mut b = NetworkBuilder::new("star");
+        b.current_source("I1", "gnd", "hub", Complex64::new(1e-3, 0.0))
+            .unwrap();
+        for k in 0..7 {
+            let leaf = format!("n{k}");
+            let r = 1e3 * (1.0 + k as f64);
+            b.resistor(&format!("R{k}"), "hub", &leaf, r).unwrap();
+            b.resistor(&format!("G{k}"), &leaf, "gnd", 2.0 * r).unwrap();
+            b.capacitor(&format!("C{k}"), &leaf, "gnd", 1e-9 * (1.0 + k as f64))
+                .unwrap();
+        }
+        System::assemble(&b.build().unwrap())
+    }
+
+    /// Entries of L and U the last factorisation may have held.
+    fn stored<const N: usize, const L: usize>(lu: &LaneLu<N, L>) -> u32 {
+        lu.lu_rows.iter().map(|r| r.count_ones()).sum()
+    }
+
+    /// The arrowhead is the classic case for ordering (common practice): eliminating the
+    /// hub first fills the whole matrix (64 entries of 8×8), eliminating it (nearly) last
+    /// fills nothing (3·8 − 2 = 22). Pivots stay on the diagonal at every frequency here (each
+    /// diagonal entry outweighs the rest of its column), so the counts are exact.
+    #[test]
+    fn the_chosen_order_leaves_an_arrowhead_without_fill() {
+        let sys = star();
+        assert_eq!(sys.n, 8);
+        let omegas: Vec<f64> = (0..8).map(|k| 1e2 * 10f64.powf(k as f64)).collect();
+        let mut natural = LaneLu::<8, 8>::with_order(&sys, &[]);
+        LaneSolver::factor(&mut natural, &omegas).unwrap();
+        assert_eq!(stored(&natural), 64);
+        let mut chosen = LaneLu::<8, 8>::new(&sys);
+        LaneSolver::factor(&mut chosen, &omegas).unwrap();
+        assert_eq!(stored(&chosen), 22);
+        // The hub among the last two (with one leaf left, either order fills nothing).
+        assert!(!chosen.order[..6].contains(&0), "{:?}", chosen.order);
+        assert!(chosen.elimination_cost() < natural.elimination_cost() / 2);
+    }
+
+    /// Solution, derivative and transposed solution at `omegas` with each of `orders`
+    /// agree with the natural order's to rounding, and satisfy the network's equations; an
+    /// order that is not a permutation is taken as the natural one, bit for bit.
+    fn any_order_solves_alike<const N: usize>(sys: &System, orders: &[[usize; N]]) {
+        let omegas: Vec<f64> = (0..8).map(|k| 3e1 * 10f64.powf(k as f64 * 0.8)).collect();
+        let natural: [usize; N] = std::array::from_fn(|i| i);
+        let reference = lane_bits(&mut LaneLu::<N, 8>::with_order(sys, &natural), sys, &omegas);
+        let mut twice = natural;
+        twice[N - 1] = 0;
+        let invalid = lane_bits(&mut LaneLu::<N, 8>::with_order(sys, &twice), sys, &omegas);
+        assert!(invalid == reference, "n = {N}: an invalid order");
+        let value = |bits: &[u64], k: usize| f64::from_bits(bits[k]);
+        for order in orders {
+            let got = lane_bits(&mut LaneLu::<N, 8>::with_order(sys, order), sys, &omegas);
+            // Per solution vector (x, dx, y of each lane): max-norm error against max norm.
+            for (a, b) in reference.chunks(2 * N).zip(got.chunks(2 * N)) {
+                let scale = (0..2 * N).map(|k| value(a, k).abs()).fold(0.0, f64::max);
+                for k in 0..2 * N {
+                    let d = (value(a, k) - value(b, k)).abs();
+                    assert!(
+                        d <= 1e-12 * scale,
+                        "n = {N}, order {order:?}: {d} of {scale}"
+                    );
+                }
+            }
+            let mut lu = LaneLu::<N, 1>::with_order(sys, order);
+            for &w in &omegas {
+                LaneSolver::factor(&mut lu, &[w]).unwrap();
+                let (mut x, mut ax) =
+                    (vec![Complex64::default(); N], vec![Complex64::default(); N]);
+                lu.solve_checked(&sys.b, &mut x).unwrap();
+                sys.multiply(w, &x, &mut ax, false);
+                let bn = sys.b.iter().map(|v| v.norm()).fold(0.0, f64::max);
+                for (u, v) in ax.iter().zip(&sys.b) {
+                    assert!(
+                        (u - v).norm() <= 1e-12 * bn,
+                        "order {order:?} at {w}: {u} vs {v}"
+                    );
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn any_elimination_order_gives_the_same_solution() {
+        let sys = crossing_pivots();
+        any_order_solves_alike::<3>(&sys, &[[2, 1, 0], [1, 2, 0], best_order::<3>(&sys)]);
+        let sys = star();
+        any_order_solves_alike::<8>(
+            &sys,
+            &[
+                [7, 6, 5, 4, 3, 2, 1, 0],
+                [3, 0, 5, 1, 7, 2, 6, 4],
+                best_order::<8>(&sys),
+            ],
+        );
+        let sys = source_ladder();
+        let reversed: [usize; 13] = std::array::from_fn(|i| 12 - i);
+        let rotated: [usize; 13] = std::array::from_fn(|i| (i + 5) % 13);
+        any_order_solves_alike::<13>(&sys, &[reversed, rotated, best_order::<13>(&sys)]);
     }
 }
