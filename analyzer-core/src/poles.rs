@@ -26,10 +26,11 @@
 //! are then those of the square block on the other columns and exact zeros: the eigensolver
 //! works on that block alone (half the order on a ladder). faer's LU and its standard
 //! eigensolver do the work (its generalized QZ, tried first, left eigenvalues unset without
-//! eigenvectors and took seconds with them on MNA pencils of 90 unknowns). Frequency is measured in units of
-//! `ω_s` (the sweep's geometric centre), and rows and columns are equilibrated by powers of
-//! two first, which changes no eigenvalue but puts entries as different as 1/R ≈ 1e-4 S,
-//! ωC ≈ 1e-9 and an op-amp's 1e5 on one footing. A root of the scaled pencil is
+//! eigenvectors and took seconds with them on MNA pencils of 90 unknowns). Frequency is
+//! measured in units of `ω_s` (the sweep's geometric centre), and rows and columns are
+//! equilibrated by powers of two first, which changes no eigenvalue but puts entries as
+//! different as 1/R ≈ 1e-4 S, ωC ≈ 1e-9 and an op-amp's 1e5 on one footing. A root of the
+//! scaled pencil is
 //!
 //! * infinite when `|λ| > 1/INFINITE_TOL` (six decades above ω_s: a block of k infinite
 //!   eigenvalues comes out of any backward-stable eigensolver perturbed to about ε^(−1/k));

@@ -532,7 +532,7 @@ pub fn figures(
     // Extrema: refined turning points of the grid and of the pole/zero seeds.
     let skeleton = Skeleton::find(&mut probe, &pts, pz)?;
     out.extrema = skeleton.refined().collect();
-    let extra: Vec<(f64, f64)> = skeleton.refined().collect();
+    let extra = out.extrema.clone();
     let all_pts = || merged(pts.iter(), &extra);
     let to_unit = |db: f64| 10f64.powf(db / 20.0);
     let min_prominence = if unit == ResponseUnit::Ratio {

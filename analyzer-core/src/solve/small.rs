@@ -280,11 +280,11 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
     /// each position; anything but a permutation of 0..N is taken as the natural order).
     pub fn with_order(sys: &System, order: &[usize]) -> Self {
         let mut order: [usize; N] = std::array::from_fn(|i| order.get(i).copied().unwrap_or(i));
-        let mut seen = 0u32;
-        for &o in &order {
-            seen |= 1u32.checked_shl(o as u32).unwrap_or(0);
-        }
-        if seen.count_ones() as usize != N || order.iter().any(|&o| o >= N) {
+        // A permutation of 0..N sets each of the N low bits once (N ≤ 16).
+        let seen = order
+            .iter()
+            .fold(0u32, |m, &o| m | 1u32.checked_shl(o as u32).unwrap_or(0));
+        if seen != (1u32 << N) - 1 {
             order = std::array::from_fn(|i| i);
         }
         let mut pos = [0usize; N];
@@ -542,8 +542,8 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
         cost
     }
 
-    /// Solves `A·y = v` into `y`, every lane with its own factorisation; `v` is in natural
-    /// order. Works in `y` throughout, so no vector is copied.
+    /// Solves `A·y = v` into `y`, every lane with its own factorisation; `v` and `y` are in
+    /// the kernel's order. Works in `y` throughout, so no vector is copied.
     #[inline(always)]
     fn solve_lanes(&self, v: &LaneVec<N, L>, y: &mut LaneVec<N, L>) {
         let (re, im) = (&self.re, &self.im);
