@@ -589,7 +589,8 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
     /// error ≤ √2·32·(n + 1)·u·‖|L̂|·|Û|‖∞ / ‖A‖∞ — the growth of the factorisation. The
     /// rounding of the residual's own computation adds at most √2·4·(n + 2)·u ≈ 1e-14 for
     /// n ≤ 16. A lane is certified when the first part is at most half the threshold
-    /// (5e-13): with the ladders' growth of 1 to 3 every lane is.
+    /// (5e-13), i.e. growth up to about 10·‖A‖∞ at n = 9: every lane of the networks in
+    /// `the_certificate_covers_networks_and_refuses_growth` is.
     ///
     /// The bound ignores underflow, so `‖A‖∞` must lie in [1e-150, 1e150] (and the solve
     /// checks its vectors' norms likewise). The growth is summed during the elimination, row
