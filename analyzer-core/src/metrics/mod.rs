@@ -270,6 +270,20 @@ pub fn check_limit(
 ) -> Result<LimitResult, AnalysisError> {
     // Made only if an edge is to be probed (a workspace each).
     let mut probe = None;
+    check_limit_probed(grid, trace, figures, limit, &mut |f| {
+        probe.get_or_insert_with(|| Refiner::new(ev, index)).db(f)
+    })
+}
+
+/// [`check_limit`] with `db_at(f)`, the response's magnitude at a band edge off the grid,
+/// from a probe the caller keeps.
+fn check_limit_probed(
+    grid: &Grid,
+    trace: &Trace,
+    figures: &Figures,
+    limit: &Limit,
+    db_at: &mut dyn FnMut(Hertz) -> Result<f64, AnalysisError>,
+) -> Result<LimitResult, AnalysisError> {
     let inside = |f: f64| f >= limit.from && f <= limit.to;
     let mut worst = (f64::INFINITY, limit.from);
     let mut consider = |db: f64, f: f64| {
@@ -305,7 +319,7 @@ pub fn check_limit(
     }
     for (f, seen) in [(limit.from, on_grid.0), (limit.to, on_grid.1)] {
         if !seen {
-            let db = probe.get_or_insert_with(|| Refiner::new(ev, index)).db(f)?;
+            let db = db_at(f)?;
             consider(db, f);
         }
     }
@@ -479,9 +493,22 @@ pub fn figures(
     pz: Option<&PoleZero>,
     pz_note: Option<String>,
 ) -> Result<Figures, AnalysisError> {
+    let mut probe = Refiner::new(ev, index);
+    figures_probed(&mut probe, grid, trace, opts, pz, pz_note)
+}
+
+/// [`figures`] with a probe of the response made by the caller (which may use it again).
+fn figures_probed(
+    probe: &mut Refiner<'_, '_>,
+    grid: &Grid,
+    trace: &Trace,
+    opts: &MetricOptions,
+    pz: Option<&PoleZero>,
+    pz_note: Option<String>,
+) -> Result<Figures, AnalysisError> {
+    let (ev, index) = (probe.evaluator(), probe.index());
     let spec = &ev.analysis().responses()[index];
     let unit = spec.kind.unit();
-    let mut probe = Refiner::new(ev, index);
     let pts = Points::new(grid, trace);
     let poles = PoleTable {
         rows: pz.map(PoleZero::rows).unwrap_or_default(),
@@ -530,7 +557,7 @@ pub fn figures(
     }
 
     // Extrema: refined turning points of the grid and of the pole/zero seeds.
-    let skeleton = Skeleton::find(&mut probe, &pts, pz)?;
+    let skeleton = Skeleton::find(probe, &pts, pz)?;
     out.extrema = skeleton.refined().collect();
     let extra = out.extrema.clone();
     let all_pts = || merged(pts.iter(), &extra);
@@ -559,8 +586,8 @@ pub fn figures(
     // Q of each peak from its own −3 dB points.
     for p in out.peaks.iter_mut() {
         let level = p.magnitude_db + HALF_POWER_DB;
-        let lo = nearest_crossing(&mut probe, all_pts(), p.freq_hz, level, false)?;
-        let hi = nearest_crossing(&mut probe, all_pts(), p.freq_hz, level, true)?;
+        let lo = nearest_crossing(probe, all_pts(), p.freq_hz, level, false)?;
+        let hi = nearest_crossing(probe, all_pts(), p.freq_hz, level, true)?;
         if let (Some(l), Some(u)) = (lo, hi) {
             p.q = Some(p.freq_hz / (u - l));
         }
@@ -571,7 +598,7 @@ pub fn figures(
     let peaks: Vec<(f64, f64)> = skeleton.of_kind(true).collect();
     let notches: Vec<(f64, f64)> = skeleton.of_kind(false).collect();
     let plan = passband::plan(
-        &mut probe,
+        probe,
         opts,
         pz,
         range,
@@ -594,9 +621,9 @@ pub fn figures(
             .as_ref()
             .map_or(level, |u| u.db + plan.level_rel);
         out.level_db = Some(level);
-        let mut crossings = crossings_at(&mut probe, all_pts(), level)?;
+        let mut crossings = crossings_at(probe, all_pts(), level)?;
         if upper_level != level {
-            crossings.extend(crossings_at(&mut probe, all_pts(), upper_level)?);
+            crossings.extend(crossings_at(probe, all_pts(), upper_level)?);
             crossings.sort_by(|a, b| a.freq_hz.total_cmp(&b.freq_hz));
         }
         let (below, above) = plan.split_at;
@@ -630,7 +657,7 @@ pub fn figures(
 
     // Resonances of impedances and admittances.
     if matches!(unit, ResponseUnit::Ohms | ResponseUnit::Siemens) {
-        out.resonances = resonances(&mut probe, grid, trace, &pts, pz, unit, all_pts)?;
+        out.resonances = resonances(probe, grid, trace, &pts, pz, unit, all_pts)?;
     }
     // Group delay at the reference (ratios only: an impedance's "delay" means nothing).
     if is_ratio && !spec.loop_gain {
@@ -648,7 +675,7 @@ pub fn figures(
         let phase_pts = pts
             .indices()
             .map(|k| (pts.freq(k), f64::from(trace.phase_deg[k])));
-        out.margins = Some(margins(&mut probe, phase_pts, all_pts())?);
+        out.margins = Some(margins(probe, phase_pts, all_pts())?);
     }
     Ok(out)
 }
@@ -663,6 +690,17 @@ pub fn response_figures(
     index: usize,
     opts: &MetricOptions,
 ) -> Result<Figures, AnalysisError> {
+    response_figures_probed(&mut Refiner::new(ev, index), grid, trace, opts)
+}
+
+/// [`response_figures`] with a probe of the response made by the caller.
+fn response_figures_probed(
+    probe: &mut Refiner<'_, '_>,
+    grid: &Grid,
+    trace: &Trace,
+    opts: &MetricOptions,
+) -> Result<Figures, AnalysisError> {
+    let (ev, index) = (probe.evaluator(), probe.index());
     let analysis = ev.analysis();
     let noise = analysis
         .responses()
@@ -679,7 +717,7 @@ pub fn response_figures(
             Err(e) => (None, Some(e.to_string())),
         }
     };
-    figures(ev, grid, trace, index, opts, pz.as_ref(), note)
+    figures_probed(probe, grid, trace, opts, pz.as_ref(), note)
 }
 
 /// The crossing of `level` nearest to `from`, above it (`up`) or below it, searched outward
@@ -916,13 +954,26 @@ pub fn assess(
         })
         .unzip();
     let default = MetricOptions::default();
-    let figures = (0..nr)
-        .map(|r| response_figures(ev, grid, &traces[r], r, opts.get(r).unwrap_or(&default)))
+    // One probe per response, for its figures and then its limits (a workspace each).
+    let mut probes: Vec<Refiner<'_, '_>> = (0..nr).map(|r| Refiner::new(ev, r)).collect();
+    let figures = probes
+        .iter_mut()
+        .enumerate()
+        .map(|(r, probe)| {
+            response_figures_probed(probe, grid, &traces[r], opts.get(r).unwrap_or(&default))
+        })
         .collect::<Result<Vec<_>, _>>()?;
     let mut checks = Vec::new();
     for limit in limits {
         if let Some(r) = specs.iter().position(|s| s.name == limit.response) {
-            checks.push(check_limit(ev, grid, &traces[r], r, &figures[r], limit)?);
+            let probe = &mut probes[r];
+            checks.push(check_limit_probed(
+                grid,
+                &traces[r],
+                &figures[r],
+                limit,
+                &mut |f| probe.db(f),
+            )?);
         }
     }
     Ok(Assessment {

@@ -256,6 +256,16 @@ impl<'e, 'a> Refiner<'e, 'a> {
         }
     }
 
+    /// The evaluator it probes.
+    pub fn evaluator(&self) -> &'e Evaluator<'a> {
+        self.ev
+    }
+
+    /// The response it probes.
+    pub fn index(&self) -> usize {
+        self.index
+    }
+
     /// Value and ω-derivative at `f`.
     pub fn point(&mut self, f: Hertz) -> Result<Point, AnalysisError> {
         self.solves += 1;
