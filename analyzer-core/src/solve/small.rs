@@ -633,20 +633,7 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
     #[inline(always)]
     fn solve_lanes(&self, v: &LaneVec<N, L>, y: &mut LaneVec<N, L>) {
         let (re, im) = (&self.re, &self.im);
-        if self.same_perm {
-            // Whole rows (every lane) at once, the usual case.
-            for (i, &p) in self.perm[0].iter().enumerate() {
-                y.re[i] = v.re[p];
-                y.im[i] = v.im[p];
-            }
-        } else {
-            for (l, perm) in self.perm.iter().enumerate() {
-                for (i, &p) in perm.iter().enumerate() {
-                    y.re[i][l] = v.re[p][l];
-                    y.im[i][l] = v.im[p][l];
-                }
-            }
-        }
+        self.interchange(v, y, false);
         // Only the entries of L and U that may be nonzero (an exact-zero term changes at
         // most the sign of a zero sum); columns in ascending order as in a dense pass.
         for i in 1..N {
@@ -714,16 +701,27 @@ impl<const N: usize, const L: usize> LaneLu<N, L> {
             z.re[i] = sr;
             z.im[i] = si;
         }
+        self.interchange(&z, y, true);
+    }
+
+    /// The row interchanges of the last factorisation: `to[i] = from[perm[i]]` in each
+    /// lane, or undone (`to[perm[i]] = from[i]`) when `back`. Whole rows, every lane at once,
+    /// when every lane interchanged alike (the usual case).
+    #[inline(always)]
+    fn interchange(&self, from: &LaneVec<N, L>, to: &mut LaneVec<N, L>, back: bool) {
+        let pair = |i: usize, p: usize| if back { (p, i) } else { (i, p) };
         if self.same_perm {
             for (i, &p) in self.perm[0].iter().enumerate() {
-                y.re[p] = z.re[i];
-                y.im[p] = z.im[i];
+                let (t, f) = pair(i, p);
+                to.re[t] = from.re[f];
+                to.im[t] = from.im[f];
             }
         } else {
             for (l, perm) in self.perm.iter().enumerate() {
                 for (i, &p) in perm.iter().enumerate() {
-                    y.re[p][l] = z.re[i][l];
-                    y.im[p][l] = z.im[i][l];
+                    let (t, f) = pair(i, p);
+                    to.re[t][l] = from.re[f][l];
+                    to.im[t][l] = from.im[f][l];
                 }
             }
         }
@@ -1442,16 +1440,13 @@ mod tests {
         sys: &System,
         omegas: &[f64],
         rhs: &[Complex64],
-    ) -> (usize, usize) {
-        let (mut certified_lanes, mut lanes) = (0, 0);
+    ) {
         for order in [best_order::<N>(sys), std::array::from_fn(|i| i)] {
             let mut wide = LaneLu::<N, 8>::with_order(sys, &order);
             if LaneSolver::factor(&mut wide, omegas).is_ok() {
                 let (certified, err) = certified_and_error(&wide, rhs);
                 for l in 0..8 {
-                    lanes += 1;
                     if certified[l] {
-                        certified_lanes += 1;
                         assert!(
                             err[l] <= RESIDUAL_LIMIT * 1e-3,
                             "n = {N}, ω = {}: {}",
@@ -1469,7 +1464,6 @@ mod tests {
                 }
             }
         }
-        (certified_lanes, lanes)
     }
 
     proptest::proptest! {
