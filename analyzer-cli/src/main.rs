@@ -239,7 +239,21 @@ fn main() -> ExitCode {
     }
 }
 
+/// Reads a design for an analysis of its responses (every command but `ports`).
 pub(crate) fn load(path: &Path) -> Result<Design, Failure> {
+    let d = load_any(path)?;
+    if d.responses.is_empty() {
+        return Err(Failure::input(format!(
+            "{}:1:1: {}",
+            path.display(),
+            design::NO_RESPONSES
+        )));
+    }
+    Ok(d)
+}
+
+/// Reads a design, which may hold `[ports]` and no responses.
+pub(crate) fn load_any(path: &Path) -> Result<Design, Failure> {
     let shown = path.display();
     let meta = std::fs::metadata(path).map_err(|e| Failure::input(format!("{shown}: {e}")))?;
     if meta.len() > design::MAX_DESIGN_BYTES as u64 {
@@ -260,10 +274,11 @@ pub(crate) fn print_warnings(d: &Design, path: &Path) {
 }
 
 fn run_check(path: &Path) -> Result<u8, Failure> {
-    let d = load(path)?;
+    let d = load_any(path)?;
     let shown = path.display();
     print_warnings(&d, path);
     let names: Vec<String> = d.responses.iter().map(|r| r.name.clone()).collect();
+    let port_names: Vec<String> = d.ports.iter().map(|p| p.name.clone()).collect();
     let grid = d.sweep.grid();
     let analysis = Analysis::new(d.network, d.responses)
         .map_err(|e| Failure::input(format!("{shown}: {e}")))?;
@@ -300,7 +315,12 @@ fn run_check(path: &Path) -> Result<u8, Failure> {
         net.node_count() - 1,
         analysis.system().n
     );
-    println!("  responses: {}", names.join(", "));
+    if !names.is_empty() {
+        println!("  responses: {}", names.join(", "));
+    }
+    if !port_names.is_empty() {
+        println!("  ports: {}", port_names.join(", "));
+    }
     match &grid {
         Ok(g) => println!("  sweep: {}", g.describe()),
         Err(e) => println!("  sweep: {e}"),

@@ -326,12 +326,12 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
                 if let Some(a) = ports::abcd_from_z(&z) {
                     let _ = writeln!(
                         text,
-                        "ABCD at {}: A {:.4}, B {:.4} Ω, C {:.4e} S, D {:.4}",
+                        "ABCD at {}: A {}, B {} Ω, C {} S, D {}",
                         hz(p.freq),
-                        a[0],
-                        a[1],
-                        a[2],
-                        a[3]
+                        complex_text(a[0].re, a[0].im, false),
+                        complex_text(a[1].re, a[1].im, false),
+                        complex_text(a[2].re, a[2].im, true),
+                        complex_text(a[3].re, a[3].im, false)
                     );
                 }
             }
@@ -383,4 +383,16 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
         return Ok(crate::EXIT_CHECK_FAILED);
     }
     Ok(0)
+}
+
+/// `a+bi` or `a−bi` with four decimals (with an exponent if `exp`); the sign of the
+/// imaginary part written once, so a negative zero does not print as `+-0`.
+fn complex_text(re: f64, im: f64, exp: bool) -> String {
+    let sign = if im < 0.0 { '-' } else { '+' };
+    let (re, im) = (re + 0.0, im.abs());
+    if exp {
+        format!("{re:.4e}{sign}{im:.4e}i")
+    } else {
+        format!("{re:.4}{sign}{im:.4}i")
+    }
 }

@@ -4,7 +4,7 @@ use analyzer_core::metrics::{Figures, LimitResult};
 use analyzer_core::response::Analysis;
 use analyzer_core::solve::SolverKind;
 use analyzer_core::sweep::Grid;
-use analyzer_core::units::format_eng;
+use analyzer_core::units::{format_eng, format_q};
 use std::fmt::Write;
 use std::time::Duration;
 
@@ -152,7 +152,7 @@ pub fn table(
         if let (Some(b), Some(c), Some(q)) = (f.bandwidth_hz, f.centre_hz, f.q) {
             row(
                 "bandwidth",
-                format!("{} around {} · Q {:.4}", hz(b), hz(c), q),
+                format!("{} around {} · Q {}", hz(b), hz(c), format_q(q, 4)),
             );
         }
         let others: Vec<String> = f
@@ -174,7 +174,9 @@ pub fn table(
             }
         };
         for p in &f.peaks {
-            let q = p.q.map(|q| format!(" · Q {q:.4}")).unwrap_or_default();
+            let q =
+                p.q.map(|q| format!(" · Q {}", format_q(q, 4)))
+                    .unwrap_or_default();
             let label = if f.unit.is_empty() { "peak" } else { "maximum" };
             row(label, format!("{} at {}{q}", magnitude(p), hz(p.freq_hz)));
         }
@@ -191,11 +193,11 @@ pub fn table(
             row(
                 "resonance",
                 format!(
-                    "{} at {}: |{of}| {} · Q {:.4} ({})",
+                    "{} at {}: |{of}| {} · Q {} ({})",
                     r.kind,
                     hz(r.freq_hz),
                     in_unit(r.magnitude),
-                    r.q,
+                    format_q(r.q, 4),
                     r.q_definition
                 ),
             );
@@ -210,7 +212,9 @@ pub fn table(
                 "at the origin (0 Hz)".to_string()
             } else if p.pair {
                 match p.q {
-                    Some(q) if q.is_finite() => format!("pair f0 {} · Q {q:.4}{flag}", hz(p.f0_hz)),
+                    Some(q) if q.is_finite() && !p.on_axis => {
+                        format!("pair f0 {} · Q {}{flag}", hz(p.f0_hz), format_q(q, 4))
+                    }
                     _ => format!("pair f0 {} on the jω axis", hz(p.f0_hz)),
                 }
             } else {

@@ -93,7 +93,11 @@ pub(crate) fn read_design(
     c: &Common,
     command: &str,
 ) -> Result<(Design, Grid, String, PathBuf), Failure> {
-    let mut d: Design = load(&c.design)?;
+    let mut d: Design = if command == "ports" {
+        crate::load_any(&c.design)?
+    } else {
+        load(&c.design)?
+    };
     if !c.quiet {
         print_warnings(&d, &c.design);
     }

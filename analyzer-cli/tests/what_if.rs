@@ -175,6 +175,63 @@ fn ports_write_touchstone_and_csv_that_agree() {
     assert!(err.contains("the design has no [ports]"), "{err}");
 }
 
+/// A design of ports alone is whole for `ports` (and `check`); the analyses of responses
+/// say what is missing. A 50 Ω π attenuator of 6 dB: shunt arms Z0·(K+1)/(K−1) and series
+/// arm Z0·(K²−1)/(2K) with K = 10^(6/20) (the matched attenuator's design equations, common
+/// practice) give |S21| = −6 dB and a perfect match at both ports; its ABCD's A is
+/// 1 + Rseries/Rshunt (closed form).
+#[test]
+fn a_design_of_ports_alone_is_analysed_as_an_n_port() {
+    let (z0, k) = (50.0f64, 10f64.powf(6.0 / 20.0));
+    let (shunt, series) = (z0 * (k + 1.0) / (k - 1.0), z0 * (k * k - 1.0) / (2.0 * k));
+    let tmp = tempfile::tempdir().unwrap();
+    let design = tmp.path().join("pad.toml");
+    std::fs::write(
+        &design,
+        format!(
+            "title = \"6 dB pad\"\n[sweep]\nfrom = \"1 MHz\"\nto = \"100 MHz\"\nper_decade = 5\n[parts]\n\
+             Ra = {{ resistor = {shunt:e}, between = [\"p1\", \"gnd\"] }}\n\
+             Rb = {{ resistor = {series:e}, between = [\"p1\", \"p2\"] }}\n\
+             Rc = {{ resistor = {shunt:e}, between = [\"p2\", \"gnd\"] }}\n\
+             [ports]\na = {{ between = [\"p1\", \"gnd\"], z0 = \"50\" }}\n\
+             b = {{ between = [\"p2\", \"gnd\"], z0 = \"50\" }}\n"
+        ),
+    )
+    .unwrap();
+    let text = stdout(
+        analyzer()
+            .args(["ports", "-o"])
+            .arg(tmp.path().join("out"))
+            .arg(&design),
+    );
+    let a = format!("A {:.4}+0.0000i", 1.0 + series / shunt);
+    assert!(text.contains(&a), "{a} in {text}");
+    let csv = std::fs::read_to_string(tmp.path().join("out/ports.csv")).unwrap();
+    let mut rows = csv.lines();
+    let head: Vec<&str> = rows.next().unwrap().split(',').collect();
+    let col = |name: &str| head.iter().position(|h| *h == name).unwrap();
+    let (s11, s21) = (col("s11_db"), col("s21_db"));
+    for row in rows {
+        let cells: Vec<f64> = row.split(',').map(|c| c.parse().unwrap()).collect();
+        assert!((cells[s21] + 6.0).abs() < 1e-9, "{row}");
+        assert!(cells[s11] < -100.0, "{row}");
+    }
+    let listed = stdout(analyzer().arg("check").arg(&design));
+    assert!(listed.contains("ports: a, b"), "{listed}");
+    let out = analyzer()
+        .args(["sweep", "-q", "-o"])
+        .arg(tmp.path().join("sweep"))
+        .arg(&design)
+        .assert()
+        .code(2);
+    let err = String::from_utf8_lossy(&out.get_output().stderr).to_string();
+    assert!(
+        err.contains("pad.toml:1:1: the design has no [responses]"),
+        "{err}"
+    );
+    assert!(!tmp.path().join("sweep").exists());
+}
+
 #[test]
 fn a_loop_gain_gets_a_nyquist_chart_with_its_margin() {
     let design = Path::new(env!("CARGO_MANIFEST_DIR")).join("../sweeps/cable-driver-loop.toml");

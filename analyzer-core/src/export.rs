@@ -13,7 +13,7 @@
 //! (−180°, 180°], and every later point differs from the one before by at most 180°.
 
 use crate::response::ResponseUnit;
-use crate::units::format_eng;
+use crate::units::{format_eng, format_q};
 use num_complex::Complex64;
 use plotters::prelude::*;
 use rayon::prelude::*;
@@ -717,9 +717,11 @@ pub fn render_pole_zero_svg(
         for r in rows {
             let (x, y) = chart_xy(r.s_re, r.s_im, inner);
             let label = match r.q {
-                Some(q) if q.is_finite() => {
-                    format!("{} Q {:.3}", tidy_label(format_eng(r.f0_hz, 4, "Hz")), q)
-                }
+                Some(q) if q.is_finite() && !r.on_axis => format!(
+                    "{} Q {}",
+                    tidy_label(format_eng(r.f0_hz, 4, "Hz")),
+                    format_q(q, 3)
+                ),
                 _ => tidy_label(format_eng(r.f0_hz, 4, "Hz")),
             };
             let color = if r.what == "pole" { MARK } else { TRACE };

@@ -74,6 +74,15 @@ pub const INFINITE_TOL: f64 = 1e-6;
 /// `|λ| ≤ ORIGIN_TOL` (scaled): the eigenvalue is at `s = 0`.
 pub const ORIGIN_TOL: f64 = 1e-6;
 
+/// `|Re s| ≤ AXIS_TOL·|s|` (Q ≥ 5·10⁸): a complex pair is on the jω axis. A lossless
+/// resonator's poles (an LC network with no resistance in its loop) or a balanced notch's
+/// zeros come out of the eigensolver with a real part of a few ε·|s| and either sign
+/// (measured: 5e-16 and 8e-16 of |s| on a lossless two-section LC ladder), which would read
+/// as a Q of 10¹⁵ and, half the time, as an unstable pole. No physical resonator comes near
+/// this Q (a quartz crystal's is about 10⁶, common practice), so the margin to the roots'
+/// accuracy is wide on both sides.
+pub const AXIS_TOL: f64 = 1e-9;
+
 /// Why poles and zeros were not computed.
 #[derive(Clone, Debug, PartialEq, thiserror::Error)]
 #[non_exhaustive]
@@ -139,11 +148,15 @@ pub struct RootRow {
     pub s_im: f64,
     /// |s|/2π (Hz): the corner of a real root, the natural frequency f0 of a pair.
     pub f0_hz: f64,
-    /// Q = |s|/(2|Re s|) of a pair (None for a real root; infinite on the jω axis).
+    /// Q = |s|/(2|Re s|) of a pair as computed (None for a real root; infinite when Re s
+    /// is exactly 0). Above 5·10⁸ it is rounding, not a quality factor: see `on_axis`.
     pub q: Option<f64>,
     /// Whether it is a complex pair.
     pub pair: bool,
-    /// Re s > 0: an unstable pole, or a right-half-plane zero.
+    /// A pair whose real part is within [`AXIS_TOL`] of |s|: on the jω axis (a lossless
+    /// resonance, a perfect notch), where the computed sign of Re s means nothing.
+    pub on_axis: bool,
+    /// Re s > 0 beyond the jω axis's tolerance: an unstable pole, or a right-half-plane zero.
     pub right_half_plane: bool,
     /// At s = 0.
     pub origin: bool,
@@ -207,6 +220,7 @@ fn rows(what: &'static str, set: &[Complex64]) -> Vec<RootRow> {
         .map(|s| {
             let pair = s.im > 0.0;
             let m = s.norm();
+            let on_axis = pair && s.re.abs() <= AXIS_TOL * m;
             RootRow {
                 what,
                 s_re: s.re,
@@ -220,7 +234,8 @@ fn rows(what: &'static str, set: &[Complex64]) -> Vec<RootRow> {
                     }
                 }),
                 pair,
-                right_half_plane: s.re > 0.0,
+                on_axis,
+                right_half_plane: s.re > 0.0 && !on_axis,
                 origin: m == 0.0,
             }
         })
@@ -691,6 +706,18 @@ mod tests {
         pole_zero(&a, 0, Some(2.0 * PI * 1e3)).unwrap()
     }
 
+    /// The driving-point impedance of R, L and C in series.
+    fn series_rlc_impedance(r: f64, l: f64, c: f64) -> PoleZero {
+        pz(&format!(
+            r#"[parts]
+L1 = {{ inductor = {l:e}, between = ["in", "m"] }}
+C1 = {{ capacitor = {c:e}, between = ["m", "n"] }}
+R1 = {{ resistor = {r:e}, between = ["n", "gnd"] }}
+[responses]
+z = {{ impedance = ["in", "gnd"] }}"#
+        ))
+    }
+
     fn close(a: Complex64, b: Complex64, tol: f64) -> bool {
         (a - b).norm() <= tol * b.norm().max(1.0)
     }
@@ -839,19 +866,56 @@ gain = { ratio = ["out", "in"] }"#);
     #[test]
     fn series_rlc_impedance_has_its_resonance_as_zeros() {
         let (r, l, c): (f64, f64, f64) = (47.0, 10e-3, 22e-9);
-        let p = pz(&format!(
-            r#"[parts]
-L1 = {{ inductor = {l:e}, between = ["in", "m"] }}
-C1 = {{ capacitor = {c:e}, between = ["m", "n"] }}
-R1 = {{ resistor = {r:e}, between = ["n", "gnd"] }}
-[responses]
-z = {{ impedance = ["in", "gnd"] }}"#
-        ));
+        let p = series_rlc_impedance(r, l, c);
         let rows = p.rows();
         let zero = rows.iter().find(|x| x.what == "zero" && x.pair).unwrap();
         let f0 = 1.0 / (2.0 * PI * (l * c).sqrt());
         assert!((zero.f0_hz / f0 - 1.0).abs() < 1e-12, "{rows:?}");
         assert!((zero.q.unwrap() / ((l / c).sqrt() / r) - 1.0).abs() < 1e-12);
         assert_eq!(p.poles, vec![Complex64::new(0.0, 0.0)], "{p:?}");
+    }
+
+    /// A lossless two-section LC ladder driven by a voltage source: its poles are the roots
+    /// of ω⁴·L1C1L2C2 − ω²·(L1C1 + L2C2 + L1C2) + 1 = 0 (closed form, the determinant of the
+    /// two loops with the source shorted), on the jω axis. They come out with real parts of a
+    /// few ε·|s| and either sign; they must read as on the axis, not as Q ≈ 10¹⁵ or as an
+    /// unstable pole. A series RLC of Q = 10⁴ (closed form √(L/C)/R) stays a pair with its Q.
+    #[test]
+    fn lossless_resonances_are_on_the_axis_and_high_q_ones_are_not() {
+        let (l1, c1, l2, c2): (f64, f64, f64, f64) = (2.2e-3, 47e-9, 1e-3, 10e-9);
+        let p = pz(&format!(
+            r#"[parts]
+V1 = {{ voltage = "1", between = ["in", "gnd"] }}
+L1 = {{ inductor = {l1:e}, between = ["in", "a"] }}
+C1 = {{ capacitor = {c1:e}, between = ["a", "gnd"] }}
+L2 = {{ inductor = {l2:e}, between = ["a", "b"] }}
+C2 = {{ capacitor = {c2:e}, between = ["b", "gnd"] }}
+[responses]
+h = {{ ratio = ["b", "in"] }}"#
+        ));
+        let (a, b) = (l1 * c1 * l2 * c2, l1 * c1 + l2 * c2 + l1 * c2);
+        let disc = (b * b - 4.0 * a).sqrt();
+        let mut expect = [
+            ((b - disc) / (2.0 * a)).sqrt(),
+            ((b + disc) / (2.0 * a)).sqrt(),
+        ];
+        expect.sort_by(f64::total_cmp);
+        let rows = p.rows();
+        let poles: Vec<&RootRow> = rows.iter().filter(|r| r.what == "pole").collect();
+        assert_eq!(poles.len(), 2, "{rows:?}");
+        for (r, w) in poles.iter().zip(expect) {
+            assert!(r.pair && r.on_axis && !r.right_half_plane, "{r:?}");
+            assert!(
+                (r.f0_hz / (w / (2.0 * PI)) - 1.0).abs() < 1e-12,
+                "{r:?} {w}"
+            );
+        }
+        let (r, l, c): (f64, f64, f64) = (1e-2, 10e-3, 1e-6);
+        let q = (l / c).sqrt() / r;
+        let p = series_rlc_impedance(r, l, c);
+        let rows = p.rows();
+        let zero = rows.iter().find(|x| x.what == "zero" && x.pair).unwrap();
+        assert!(!zero.on_axis && !zero.right_half_plane, "{zero:?}");
+        assert!((zero.q.unwrap() / q - 1.0).abs() < 1e-9, "{zero:?} {q}");
     }
 }

@@ -331,6 +331,20 @@ fn finish(
     Ok(if negative { -magnitude } else { magnitude })
 }
 
+/// Writes a quality factor with `decimals` decimals, or with an exponent from 10⁵ up (a
+/// lossless resonance measures a Q of 10¹² and more, which fixed notation would spell out in
+/// sixteen digits): `format_q(3.16228, 4)` → `"3.1623"`, `format_q(4.2e12, 4)` → `"4.2000e12"`,
+/// an infinite Q → `"∞"`.
+pub fn format_q(q: f64, decimals: usize) -> String {
+    if q.is_infinite() && q > 0.0 {
+        "∞".to_string()
+    } else if q.abs() < 1e5 || !q.is_finite() {
+        format!("{q:.decimals$}")
+    } else {
+        format!("{q:.decimals$e}")
+    }
+}
+
 /// Writes `value` in engineering notation with `digits` significant digits and the unit,
 /// e.g. `format_eng(1591.549, 5, "Hz")` → `"1.5915 kHz"`. Prefixes from f to T; outside that
 /// range an exponent is used. Non-finite values are written as `inf`, `-inf` or `NaN`.
@@ -560,5 +574,9 @@ mod tests {
         assert_eq!(format_short(4700.0, 4, "Ω"), "4.7 kΩ");
         assert_eq!(format_short(-3.0, 4, "dB"), "-3 dB");
         assert_eq!(format_short(123456.0, 4, "Hz"), "123.5 kHz");
+        assert_eq!(format_q(3.162_277_66, 4), "3.1623");
+        assert_eq!(format_q(99_999.0, 1), "99999.0");
+        assert_eq!(format_q(4.233_42e12, 4), "4.2334e12");
+        assert_eq!(format_q(f64::INFINITY, 4), "∞");
     }
 }

@@ -453,6 +453,11 @@ fn number(
     Ok(x)
 }
 
+/// What a design without `[responses]` is told by an analysis that reads responses (a design
+/// with `[ports]` alone parses, for the N-port analysis).
+pub const NO_RESPONSES: &str =
+    "the design has no [responses]; name at least one, e.g. gain = { ratio = [\"out\", \"in\"] }";
+
 /// Reads a design from TOML text. Never panics; every problem is a [`DesignError`].
 pub fn parse(text: &str) -> Result<Design, DesignError> {
     let pos = Positions { text };
@@ -586,18 +591,17 @@ pub fn parse(text: &str) -> Result<Design, DesignError> {
             *referred_to = Some(j);
         }
     }
-    if responses.is_empty() {
-        return Err(pos.err(
-            0..0,
-            "the design has no [responses]; name at least one, e.g. gain = { ratio = [\"out\", \"in\"] }",
-        ));
-    }
     let mut ports = Vec::new();
     if let Some(ps) = top.value("ports") {
         for (key, value) in table(&pos, ps, || "[ports]".into())?.entries() {
             let entry = table(&pos, value, || format!("port {}", key.text))?;
             ports.push(read_port(&pos, &network, &key.text, entry)?);
         }
+    }
+    // A design of ports alone (an attenuator, a matching network) is whole for the N-port
+    // analysis; every other analysis asks for responses ([`NO_RESPONSES`]).
+    if responses.is_empty() && ports.is_empty() {
+        return Err(pos.err(0..0, NO_RESPONSES));
     }
     let mut limits = Vec::new();
     let mut port_limits = Vec::new();

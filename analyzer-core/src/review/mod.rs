@@ -414,7 +414,11 @@ fn poles_table(out: &mut String, f: &Figures) {
         } else {
             format!("{} ± j{}", sig(r.s_re, 5), sig(r.s_im.abs(), 5))
         };
-        let q = r.q.map_or("—".to_string(), |q| sig(q, 4));
+        let q = match r.q {
+            _ if r.on_axis => "∞ (on the jω axis)".to_string(),
+            Some(q) => sig(q, 4),
+            None => "—".to_string(),
+        };
         let _ = writeln!(
             out,
             "<tr><td>{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{}</td></tr>",

@@ -6,7 +6,7 @@ use crate::export::decimate;
 use crate::metrics::{Figures, Limit, Trace};
 use crate::response::{ResponseSpec, ResponseUnit};
 use crate::sweep::Grid;
-use crate::units::format_eng;
+use crate::units::{format_eng, format_q};
 
 /// How plots are drawn.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
@@ -110,7 +110,8 @@ pub fn marks(spec: &ResponseSpec, figures: &Figures, s: &Series, prefix: &str) -
         });
     }
     for p in &f.peaks {
-        let q = p.q.map_or(String::new(), |q| format!(", Q {q:.3}"));
+        let q =
+            p.q.map_or(String::new(), |q| format!(", Q {}", format_q(q, 3)));
         out.push(Mark {
             freq: p.freq_hz,
             panel: PanelKind::Magnitude,
@@ -148,10 +149,10 @@ pub fn marks(spec: &ResponseSpec, figures: &Figures, s: &Series, prefix: &str) -
                 panel: PanelKind::Magnitude,
                 value: v,
                 label: format!(
-                    "{prefix}{} resonance {}, Q {:.3}",
+                    "{prefix}{} resonance {}, Q {}",
                     r.kind,
                     hz(r.freq_hz),
-                    r.q
+                    format_q(r.q, 3)
                 ),
             });
         }
