@@ -689,7 +689,13 @@ pub fn render(b: &Bode<'_>) -> Result<String, BodeError> {
                     .flat_map(|p| [mag_v(p.1), mag_v(p.2)]),
             ),
     )
-    .ok_or_else(|| BodeError("no finite magnitude to draw".into()))?;
+    .ok_or_else(|| {
+        BodeError(
+            "no finite magnitude to draw: the response is zero (or not finite) at every \
+             frequency shown; check its read-out nodes and that a source drives them"
+                .into(),
+        )
+    })?;
     let near =
         |v: f64| v >= data.0 - 40.0 * (1.0 - 0.95 * f64::from(log_scale)) && v <= data.1 + 40.0;
     let levels = b
