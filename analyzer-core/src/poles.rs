@@ -673,10 +673,13 @@ fn asymptotic_slope(
     } else {
         zeros.iter().map(|s| s.norm()).fold(0.0, f64::max)
     };
-    if top == 0.0 {
-        return None;
-    }
-    let w = (top * 1e3).min(omega_s / INFINITE_TOL);
+    // Every root at the origin (an integrator): the slope is the same at every frequency,
+    // so it is read at the sweep's centre.
+    let w = if top == 0.0 {
+        omega_s
+    } else {
+        (top * 1e3).min(omega_s / INFINITE_TOL)
+    };
     let ev = analysis.evaluator().ok()?;
     let mut ws = ev.workspace_for(index);
     let p = ev
@@ -917,5 +920,24 @@ h = {{ ratio = ["b", "in"] }}"#
         let zero = rows.iter().find(|x| x.what == "zero" && x.pair).unwrap();
         assert!(!zero.on_axis && !zero.right_half_plane, "{zero:?}");
         assert!((zero.q.unwrap() / q - 1.0).abs() < 1e-9, "{zero:?} {q}");
+    }
+
+    /// An ideal op-amp integrator, H = −1/(sRC) (closed form): one pole at the origin, no
+    /// zeros, and the count verified by the slope (−20 dB/decade everywhere), not flagged
+    /// as unverified for want of a nonzero root to measure above.
+    #[test]
+    fn an_integrator_has_its_pole_at_the_origin_and_a_verified_count() {
+        let p = pz(r#"[parts]
+V1 = { voltage = "1", between = ["in", "gnd"] }
+R1 = { resistor = "10k", between = ["in", "n"] }
+C1 = { capacitor = "10n", between = ["n", "out"] }
+U1 = { opamp = "ideal", noninverting = "gnd", inverting = "n", output = "out" }
+[responses]
+i = { ratio = ["out", "in"] }"#);
+        assert_eq!(p.poles, vec![Complex64::new(0.0, 0.0)], "{p:?}");
+        assert!(
+            p.zeros.is_empty() && !p.unverified && p.at_infinity == 0,
+            "{p:?}"
+        );
     }
 }

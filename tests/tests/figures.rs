@@ -217,6 +217,32 @@ fn rc_group_delay_is_rc_over_one_plus_omega_rc_squared() {
     }
 }
 
+/// An all-pass has no passband to measure crossings from, but its group delay is reported, at
+/// DC: the first-order op-amp all-pass H = (1 − sRC)/(1 + sRC) (R1 = R2, closed form) has
+/// phase −2·atan(ωRC) and τ(0) = 2RC.
+#[test]
+fn an_all_pass_reports_its_group_delay_at_dc() {
+    let (r, c) = (10e3, 15.9155e-9);
+    let a = analysis(&format!(
+        r#"[parts]
+V1 = {{ voltage = "1", between = ["in", "gnd"] }}
+R1 = {{ resistor = "10k", between = ["in", "n"] }}
+R2 = {{ resistor = "10k", between = ["n", "out"] }}
+R3 = {{ resistor = {r:e}, between = ["in", "p"] }}
+C1 = {{ capacitor = {c:e}, between = ["p", "gnd"] }}
+U1 = {{ opamp = "ideal", noninverting = "p", inverting = "n", output = "out" }}
+[responses]
+g = {{ ratio = ["out", "in"] }}"#
+    ));
+    let grid = Grid::log(10.0, 1e5, 30.0).unwrap();
+    let f = figures_of(&a, &grid, 0, &MetricOptions::default());
+    assert_eq!(f.class, "all-pass");
+    assert!(f.reference.is_none() && f.lower_cutoff_hz.is_none());
+    assert_eq!(f.group_delay_hz, Some(0.0));
+    let tau = f.group_delay_s.unwrap();
+    assert!(rel(tau, 2.0 * r * c) < 1e-12, "{tau} vs {}", 2.0 * r * c);
+}
+
 /// A figure of one response never depends on another's failing: the input impedance of an
 /// RC low-pass is infinite at DC (no current flows: a division by zero there), yet the
 /// ratio's DC gain and its group delay are still taken at DC: 0 dB and τ(0) = RC (closed

@@ -252,6 +252,9 @@ pub(super) fn plan(
                 plan.delay_at = Some(0.0);
             }
         }
+        // No passband to measure crossings from, but the delay is what an all-pass is
+        // for: its group delay at DC, where a delay equaliser's is quoted (common practice).
+        "all-pass" if dc.is_some() => plan.delay_at = Some(0.0),
         "shelf" => match (dc, hf) {
             (Some(d), Some(h)) if d >= h => {
                 plan.reference = Some(level("dc", d, Some(0.0), "shelf: the higher asymptote, DC"));
