@@ -113,7 +113,7 @@ impl Quantity {
 
 /// Why a value text could not be read. The message names the text and what was expected.
 #[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
-#[error("{reason} in {text:?}; expected a {quantity} such as {example}")]
+#[error("{reason} in {text:?}; expected {} {quantity} such as {example}", article(.quantity))]
 pub struct ValueError {
     /// The text as given.
     pub text: String,
@@ -123,6 +123,15 @@ pub struct ValueError {
     pub quantity: &'static str,
     /// A well-formed example.
     pub example: &'static str,
+}
+
+/// "an" before a vowel ("an inductance", "an angle"), else "a".
+fn article(word: &str) -> &'static str {
+    if word.starts_with(['a', 'e', 'i', 'o', 'u']) {
+        "an"
+    } else {
+        "a"
+    }
 }
 
 fn prefix_factor(c: char) -> Option<f64> {
@@ -246,12 +255,29 @@ fn unit_list(quantity: Quantity) -> &'static str {
     }
 }
 
-fn unit_mismatch(unit: &str, quantity: Quantity) -> String {
+fn unit_mismatch(unit: &str, quantity: Quantity, prefix: Option<char>) -> String {
     if quantity == Quantity::Ratio {
         return format!("unit {unit:?} does not fit a plain number (give no unit)");
     }
+    // `10 uf`, `2.2 mh`: the symbol in the wrong case (SI symbols are case-sensitive, and a
+    // lowercase f is femto), said as such rather than as a unit of another quantity.
+    if let Some(word) = quantity
+        .unit_words()
+        .iter()
+        .find(|w| w.eq_ignore_ascii_case(unit))
+    {
+        let milli = if prefix == Some('m') {
+            "; m is milli, M mega"
+        } else {
+            ""
+        };
+        return format!(
+            "unit {unit:?} is written {word:?} (unit symbols are case-sensitive{milli})"
+        );
+    }
     format!(
-        "unit {unit:?} does not fit a {} (use {} or no unit)",
+        "unit {unit:?} does not fit {} {} (use {} or no unit)",
+        article(quantity.name()),
         quantity.name(),
         unit_list(quantity)
     )
@@ -295,12 +321,16 @@ fn read_suffix(
         if tail.is_empty() || quantity.unit_words().contains(&tail) {
             return Ok(factor);
         }
-        if tail.chars().next().and_then(prefix_factor).is_some() {
+        let case_slip = quantity
+            .unit_words()
+            .iter()
+            .any(|w| w.eq_ignore_ascii_case(tail));
+        if tail.chars().next().and_then(prefix_factor).is_some() && !case_slip {
             return Err(fail("two prefixes"));
         }
-        return Err(fail(&unit_mismatch(tail, quantity)));
+        return Err(fail(&unit_mismatch(tail, quantity, Some(first))));
     }
-    Err(fail(&unit_mismatch(rest, quantity)))
+    Err(fail(&unit_mismatch(rest, quantity, None)))
 }
 
 fn check_unit_word(
@@ -313,7 +343,7 @@ fn check_unit_word(
     } else if rest.chars().next().and_then(prefix_factor).is_some() {
         Err(fail("a prefix after the letter code"))
     } else {
-        Err(fail(&unit_mismatch(rest, quantity)))
+        Err(fail(&unit_mismatch(rest, quantity, None)))
     }
 }
 
@@ -559,6 +589,24 @@ mod tests {
             parse_value("1", Quantity::Percent).unwrap_err().reason,
             "a tolerance needs the % sign"
         );
+        // A unit symbol in the wrong case is named as such (SI symbols are case-sensitive,
+        // and a lowercase f is femto), with the article the quantity takes.
+        let err = parse_value("1 uf", Quantity::Capacitance).unwrap_err();
+        assert_eq!(
+            err.reason,
+            "unit \"f\" is written \"F\" (unit symbols are case-sensitive)"
+        );
+        let err = parse_value("10mh", Quantity::Inductance).unwrap_err();
+        assert_eq!(
+            err.reason,
+            "unit \"h\" is written \"H\" (unit symbols are case-sensitive; m is milli, M mega)"
+        );
+        assert!(
+            err.to_string().contains("expected an inductance such as"),
+            "{err}"
+        );
+        let err = parse_value("10 mhz", Quantity::Frequency).unwrap_err();
+        assert!(err.reason.contains("m is milli, M mega"), "{err}");
     }
 
     #[test]
