@@ -551,6 +551,94 @@ fn vanishes(
     })
 }
 
+/// Step from a candidate root to the points its read-out is compared at, relative to |s|.
+const ROOT_PROBE_STEP: f64 = 1e-2;
+
+/// The candidate zeros of response `r` that are zeros on the network itself or could not
+/// be decided, and how many could not (None if the network has no solver plan). At a zero z the response vanishes: |H(z)| is below
+/// its value at four points 1 % of |z| away by the ratio of the zero's error to that step
+/// (1e-4 for an error of 1e-6 of |z|, less for a multiple zero), while at a spurious
+/// candidate the response is as large as around it. Kept below 1e-3 of the smallest of the
+/// four, dropped above 0.1 of it; between, or where the network cannot be solved or the
+/// response is zero all around (below the double range), undecided and kept. The network is solved
+/// at complex s = σ + jω as `G + σC` at ω on its own solver path. A complex pair is decided
+/// by its upper member.
+fn confirm_zeros(
+    analysis: &Analysis,
+    r: &crate::response::ResponseReadout<'_>,
+    candidates: &[Complex64],
+) -> Option<(Vec<Complex64>, usize)> {
+    let plan = analysis.plan().ok()?;
+    let read = |q: &Readout, x: &[Complex64], s: Complex64| {
+        let mut v = if r.design {
+            q.constant
+        } else {
+            Complex64::new(0.0, 0.0)
+        };
+        for &(i, w) in &q.g {
+            v += x.get(i).copied().unwrap_or_default() * w;
+        }
+        for &(i, w) in &q.c {
+            v += s * x.get(i).copied().unwrap_or_default() * w;
+        }
+        v
+    };
+    let at = |s: Complex64| -> Option<f64> {
+        let shifted = analysis.system().shifted(s.re);
+        let plan = plan.rebind(&shifted)?;
+        let mut solver = plan.make();
+        solver.factor(s.im).ok()?;
+        let mut x = r.rhs.to_vec();
+        solver.solve(&mut x);
+        let num = read(r.numerator, &x, s);
+        let den = r
+            .denominator
+            .map_or(Complex64::new(1.0, 0.0), |d| read(d, &x, s));
+        let m = if r.invert {
+            den.norm() / num.norm()
+        } else {
+            num.norm() / den.norm()
+        };
+        (!m.is_nan()).then_some(m)
+    };
+    let verdict = |z: Complex64| -> Option<bool> {
+        let h0 = at(z)?;
+        let step = ROOT_PROBE_STEP * z.norm();
+        let mut around = f64::INFINITY;
+        for d in [
+            Complex64::new(step, 0.0),
+            Complex64::new(-step, 0.0),
+            Complex64::new(0.0, step),
+            Complex64::new(0.0, -step),
+        ] {
+            around = around.min(at(z + d)?);
+        }
+        if !(around > 0.0 && around.is_finite()) {
+            None
+        } else if h0 <= 1e-3 * around {
+            Some(true)
+        } else if h0 >= 0.1 * around {
+            Some(false)
+        } else {
+            None
+        }
+    };
+    let verdicts: Vec<(Complex64, Option<bool>)> = candidates
+        .iter()
+        .filter(|z| z.im >= 0.0)
+        .map(|&z| (z, verdict(z)))
+        .collect();
+    let undecided = verdicts.iter().filter(|v| v.1.is_none()).count();
+    // Kept: the confirmed and the undecided (which leave the count unverified).
+    let keep = |s: &Complex64| {
+        let upper = if s.im < 0.0 { s.conj() } else { *s };
+        verdicts
+            .iter()
+            .any(|&(z, k)| k != Some(false) && z == upper)
+    };
+    Some((candidates.iter().copied().filter(keep).collect(), undecided))
+}
+
 /// Drops pole–zero pairs that coincide within [`CANCEL_TOL`]; returns how many.
 fn cancel(poles: &mut Vec<Complex64>, zeros: &mut Vec<Complex64>) -> usize {
     let mut dropped = 0;
@@ -613,7 +701,22 @@ pub fn pole_zero(
     let cancelled = cancel(&mut poles, &mut zeros);
     let mut dropped = 0;
     let slope = asymptotic_slope(analysis, index, &poles, &zeros, w);
-    let unverified = slope.is_none() && !poles.is_empty();
+    let mut unverified = slope.is_none() && !poles.is_empty();
+    if slope.is_none() {
+        // The count cannot be checked against the slope (a long ladder falls below the
+        // double range above its poles). A block of k infinite eigenvalues comes out as a
+        // ring of radius about ε^(−1/k) in units of ω_s, inside the band when k is large
+        // (1.35 for k = 120), so each candidate root of a read-out is tested on the network
+        // itself instead: kept where the response vanishes, dropped where it does not.
+        // (The poles are the natural frequencies or a read-out's roots under a source,
+        // whose count is not in question the same way.)
+        let before = zeros.len();
+        if let Some((kept, undecided)) = confirm_zeros(analysis, &r, &zeros) {
+            zeros = kept;
+            dropped += before - zeros.len();
+            unverified = undecided > 0;
+        }
+    }
     if let Some(slope) = slope {
         // A block of k infinite eigenvalues comes out perturbed to |λ| ≈ ε^(−1/k): a
         // response falling many decades per decade at high frequency (a long ladder) shows
@@ -939,5 +1042,26 @@ i = { ratio = ["out", "in"] }"#);
             p.zeros.is_empty() && !p.unverified && p.at_infinity == 0,
             "{p:?}"
         );
+    }
+
+    /// A 60-section RLC ladder (series R and L, shunt C) read end to end has 120 poles and
+    /// no finite zeros: a ladder's transmission zeros are where a series arm opens or a shunt
+    /// arm shorts, here only at infinity (common practice). Its numerator pencil's block of
+    /// infinite eigenvalues comes out as a ring of spurious roots inside the band, and its
+    /// response is below the double range where the slope would count them; tested on the
+    /// network at complex frequencies, none may stay in or near the band.
+    #[test]
+    fn a_long_ladder_keeps_no_spurious_zeros_in_its_band() {
+        let net = crate::ladders::rlc_ladder(60, 1.0, 1e-6, 1e-9, 50.0, 50.0).unwrap();
+        let spec = crate::ladders::ladder_gain(&net, 60).unwrap();
+        let a = Analysis::new(net, vec![spec]).unwrap();
+        for fs in [1e5, 1e6] {
+            let p = pole_zero(&a, 0, Some(2.0 * PI * fs)).unwrap();
+            assert_eq!(p.poles.len(), 120, "{fs}");
+            let top = p.poles.iter().map(|s| s.norm()).fold(0.0, f64::max);
+            let near: Vec<&Complex64> = p.zeros.iter().filter(|z| z.norm() < 100.0 * top).collect();
+            assert!(near.is_empty(), "{fs}: {near:?}");
+            assert_eq!(p.unverified, !p.zeros.is_empty(), "{fs}: {p:?}");
+        }
     }
 }

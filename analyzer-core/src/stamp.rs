@@ -254,17 +254,35 @@ impl System {
         (sys.g, sys.c) = (g, c);
         sys.g.shrink_to_fit();
         sys.c.shrink_to_fit();
-        for (k, &(r, c)) in sys.pattern.iter().enumerate() {
-            if let Some(row) = sys.row_abs.get_mut(r) {
-                row.0 += sys.g[k].abs();
-                row.1 += sys.c[k].abs();
+        sys.sum_abs();
+        sys.b = st.b;
+        sys
+    }
+
+    /// The row and column sums of |g| and |c| the residual checks take their norms from.
+    fn sum_abs(&mut self) {
+        self.row_abs = vec![(0.0, 0.0); self.n];
+        self.col_abs = vec![(0.0, 0.0); self.n];
+        for (k, &(r, c)) in self.pattern.iter().enumerate() {
+            if let Some(row) = self.row_abs.get_mut(r) {
+                row.0 += self.g[k].abs();
+                row.1 += self.c[k].abs();
             }
-            if let Some(col) = sys.col_abs.get_mut(c) {
-                col.0 += sys.g[k].abs();
-                col.1 += sys.c[k].abs();
+            if let Some(col) = self.col_abs.get_mut(c) {
+                col.0 += self.g[k].abs();
+                col.1 += self.c[k].abs();
             }
         }
-        sys.b = st.b;
+    }
+
+    /// The system at complex frequencies `σ + jω`: `G + σC` in place of `G`, so that its
+    /// solves at ω are those of the network at `s = σ + jω` (same pattern, same solver paths).
+    pub fn shifted(&self, sigma: f64) -> System {
+        let mut sys = self.clone();
+        for (g, c) in sys.g.iter_mut().zip(&self.c) {
+            *g += sigma * c;
+        }
+        sys.sum_abs();
         sys
     }
 
