@@ -172,11 +172,16 @@ impl PoleZero {
 
     /// Complex pole pairs with Q above `q_min` and zero pairs with Q above `q_min` (near the
     /// jω axis), as (natural frequency in Hz, Q, is a pole): the seeds of the figures'
-    /// searches for peaks, notches and resonances.
+    /// searches for peaks, notches and resonances. A pole pair on the jω axis is left out:
+    /// the response is infinite there (a ratio's denominator vanishes, and a probe at that
+    /// very frequency is refused), so a scan around it has nothing to refine.
     pub fn seeds(&self, q_min: f64) -> Vec<(f64, f64, bool)> {
         let mut out = Vec::new();
         for (set, pole) in [(&self.poles, true), (&self.zeros, false)] {
             for r in rows("", set) {
+                if pole && r.on_axis {
+                    continue;
+                }
                 if let Some(q) = r.q {
                     if q > q_min {
                         out.push((r.f0_hz, q, pole));

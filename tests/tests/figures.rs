@@ -165,7 +165,7 @@ fn third_order_chebyshev_ripple_and_ripple_edge() {
 #[test]
 fn balanced_twin_t_notches_at_one_over_two_pi_rc() {
     // Published: the twin-T with R, R, 2C and C, C, R/2 has a null at f0 = 1/(2πRC).
-    let (r, c) = (16e3, 10e-9);
+    let (r, c) = (10e3, 10e-9);
     let a = analysis(
         &format!(
             r#"[parts]
@@ -178,22 +178,26 @@ Cb = {{ capacitor = {c:e}, between = ["q", "out"] }}
 Rq = {{ resistor = {rh:e}, between = ["q", "gnd"] }}
 RL = {{ resistor = "10Meg", between = ["out", "gnd"] }}
 [responses]
-g = {{ ratio = ["out", "in"] }}"#,
+g = {{ ratio = ["out", "in"] }}
+inverse = {{ ratio = ["in", "out"] }}"#,
             c2 = 2.0 * c,
             rh = r / 2.0
         )
         .replace("10Meg", "10M"),
     );
     let f0 = 1.0 / (2.0 * PI * r * c);
-    let f = figures_of(
-        &a,
-        &Grid::log(10.0, 100e3, 10.0).unwrap(),
-        0,
-        &MetricOptions::default(),
-    );
+    let grid = Grid::log(10.0, 100e3, 20.0).unwrap();
+    let f = figures_of(&a, &grid, 0, &MetricOptions::default());
     let notch = &f.notches[0];
     assert!(rel(notch.freq_hz, f0) < 1e-9, "{} vs {f0}", notch.freq_hz);
     assert!(notch.magnitude_db < -60.0);
+    // Its inverse has a pole pair on the jω axis there, where its denominator vanishes:
+    // the figures find an unbounded peak at f0 instead of refusing the response (with
+    // these values a probe exactly at f0 finds the denominator exactly zero).
+    let f = figures_of(&a, &grid, 1, &MetricOptions::default());
+    let peak = &f.peaks[0];
+    assert!(rel(peak.freq_hz, f0) < 1e-9, "{} vs {f0}", peak.freq_hz);
+    assert!(peak.magnitude_db > 60.0);
 }
 
 /// A 1 kΩ, 1 µF low-pass driven from a voltage source; response 0 is its ratio.
