@@ -560,14 +560,14 @@ fn vanishes(
 const ROOT_PROBE_STEP: f64 = 1e-2;
 
 /// The candidate zeros of response `r` that are zeros on the network itself or could not
-/// be decided, and how many could not (None if the network has no solver plan). At a zero z the response vanishes: |H(z)| is below
-/// its value at four points 1 % of |z| away by the ratio of the zero's error to that step
-/// (1e-4 for an error of 1e-6 of |z|, less for a multiple zero), while at a spurious
-/// candidate the response is as large as around it. Kept below 1e-3 of the smallest of the
-/// four, dropped above 0.1 of it; between, or where the network cannot be solved or the
-/// response is zero all around (below the double range), undecided and kept. The network is solved
-/// at complex s = σ + jω as `G + σC` at ω on its own solver path. A complex pair is decided
-/// by its upper member.
+/// be decided, and how many could not (None if the network has no solver plan). At a zero
+/// z the response vanishes: |H(z)| is below its value at four points 1 % of |z| away by the
+/// ratio of the zero's error to that step (1e-4 for an error of 1e-6 of |z|, less for a
+/// multiple zero), while at a spurious candidate the response is as large as around it.
+/// Kept below 1e-3 of the smallest of the four, dropped above 0.1 of it; between, or where
+/// the network cannot be solved or the response is zero all around (below the double
+/// range), undecided and kept. The network is solved at complex s = σ + jω as `G + σC` at
+/// ω on its own solver path. A complex pair is decided by its upper member.
 fn confirm_zeros(
     analysis: &Analysis,
     r: &crate::response::ResponseReadout<'_>,
