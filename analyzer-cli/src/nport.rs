@@ -385,7 +385,7 @@ pub fn run_ports(args: &PortsArgs) -> Result<u8, Failure> {
     Ok(0)
 }
 
-/// `a+bi` or `a−bi` with four decimals (with an exponent if `exp`); the sign of the
+/// `a+bi` or `a-bi` with four decimals (with an exponent if `exp`); the sign of the
 /// imaginary part written once, so a negative zero does not print as `+-0`.
 fn complex_text(re: f64, im: f64, exp: bool) -> String {
     let sign = if im < 0.0 { '-' } else { '+' };
