@@ -574,20 +574,6 @@ fn confirm_zeros(
     candidates: &[Complex64],
 ) -> Option<(Vec<Complex64>, usize)> {
     let plan = analysis.plan().ok()?;
-    let read = |q: &Readout, x: &[Complex64], s: Complex64| {
-        let mut v = if r.design {
-            q.constant
-        } else {
-            Complex64::new(0.0, 0.0)
-        };
-        for &(i, w) in &q.g {
-            v += x.get(i).copied().unwrap_or_default() * w;
-        }
-        for &(i, w) in &q.c {
-            v += s * x.get(i).copied().unwrap_or_default() * w;
-        }
-        v
-    };
     let at = |s: Complex64| -> Option<f64> {
         let shifted = analysis.system().shifted(s.re);
         let plan = plan.rebind(&shifted)?;
@@ -595,10 +581,10 @@ fn confirm_zeros(
         solver.factor(s.im).ok()?;
         let mut x = r.rhs.to_vec();
         solver.solve(&mut x);
-        let num = read(r.numerator, &x, s);
+        let num = r.numerator.eval_at(&x, s, r.design);
         let den = r
             .denominator
-            .map_or(Complex64::new(1.0, 0.0), |d| read(d, &x, s));
+            .map_or(Complex64::new(1.0, 0.0), |d| d.eval_at(&x, s, r.design));
         let m = if r.invert {
             den.norm() / num.norm()
         } else {

@@ -46,6 +46,12 @@ pub struct Readout {
 impl Readout {
     /// Evaluates the read-out on solution `x` at angular frequency `omega`.
     pub fn eval(&self, x: &[Complex64], omega: f64, with_constant: bool) -> Complex64 {
+        self.eval_at(x, Complex64::new(0.0, omega), with_constant)
+    }
+
+    /// Evaluates the read-out on solution `x` at the complex frequency `s` (its `C` terms
+    /// times s; [`Readout::eval`] is s = jω).
+    pub fn eval_at(&self, x: &[Complex64], s: Complex64, with_constant: bool) -> Complex64 {
         let mut g = Complex64::new(0.0, 0.0);
         for &(i, w) in &self.g {
             g += x.get(i).copied().unwrap_or_default() * w;
@@ -54,7 +60,7 @@ impl Readout {
         for &(i, w) in &self.c {
             c += x.get(i).copied().unwrap_or_default() * w;
         }
-        let mut v = g + Complex64::new(0.0, omega) * c;
+        let mut v = g + s * c;
         if with_constant {
             v += self.constant;
         }
